@@ -19,6 +19,7 @@ Shape kinds:
 
 from __future__ import annotations
 
+import weakref as _weakref
 from dataclasses import dataclass, field
 from typing import Union
 
@@ -156,3 +157,237 @@ class Zone:
 
 
 ZONE_KINDS = ("fence", "guard", "keep-out", "fixture", "machine", "floor", "wall", "ceiling")
+
+
+# ---------------------------------------------------------------------------------------------------
+# Geometric functions on shapes: interior points, bounding spheres, support functions, inside tests.
+#
+# Directions and points are ``(k, 3)`` float64 arrays (a single ``(3,)`` is promoted and squeezed
+# back). Every function works in the frame the shape is given in; ``transformed`` moves a shape.
+
+
+_CACHE = _weakref.WeakKeyDictionary()
+"""Per-shape derived data (hull facets, trimesh objects), keyed weakly by the (immutable) shape."""
+
+
+def _cached(shape, key, make):
+    entry = _CACHE.setdefault(shape, {})
+    if key not in entry:
+        entry[key] = make()
+    return entry[key]
+
+
+def _promote(x):
+    arr = np.asarray(x, dtype=np.float64)
+    single = arr.ndim == 1
+    return (arr[None, :] if single else arr), single
+
+
+def is_convex_kind(shape) -> bool:
+    """True for shapes that are convex solids by kind (a ``TriMesh`` or ``HalfSpace`` is not counted)."""
+    return isinstance(shape, (Sphere, Capsule, Box, Cylinder, Convex))
+
+
+def convex_hull(shape) -> Convex:
+    """The convex hull of a ``TriMesh`` or ``Convex`` as a ``Convex`` (its distinct hull vertices).
+
+    A body's mesh may be replaced by its hull for clearance: the hull contains the mesh, so every
+    distance to it is smaller or equal (safe).
+    """
+    from scipy.spatial import ConvexHull
+
+    v = np.asarray(shape.vertices)
+    hull = ConvexHull(v)
+    return Convex(v[np.unique(hull.vertices)])
+
+
+def hull_equations(shape) -> np.ndarray:
+    """``(m, 4)`` outward facet planes ``a . x + b <= 0`` of a ``Convex`` (or a mesh's hull), unit normals."""
+    from scipy.spatial import ConvexHull
+
+    return _cached(shape, "hull_eq", lambda: np.ascontiguousarray(ConvexHull(np.asarray(shape.vertices)).equations))
+
+
+def hull_faces(shape) -> np.ndarray:
+    """``(m, 3)`` int triangles of the convex hull of ``shape.vertices`` (indices into ``vertices``)."""
+    from scipy.spatial import ConvexHull
+
+    return _cached(shape, "hull_faces", lambda: np.ascontiguousarray(ConvexHull(np.asarray(shape.vertices)).simplices))
+
+
+def transformed(shape, parent_from_frame):
+    """``shape`` (given in ``frame``) expressed in ``parent``: ``parent_from_frame`` is ``(4, 4)`` rigid."""
+    T = np.asarray(parent_from_frame, dtype=np.float64)
+    R, t = T[:3, :3], T[:3, 3]
+
+    def p(x):
+        return R @ np.asarray(x) + t
+
+    if isinstance(shape, Sphere):
+        return Sphere(p(shape.center), shape.radius)
+    if isinstance(shape, Capsule):
+        return Capsule(p(shape.p0), p(shape.p1), shape.radius)
+    if isinstance(shape, Box):
+        return Box(shape.extents, T @ shape.pose)
+    if isinstance(shape, Cylinder):
+        return Cylinder(shape.radius, shape.length, T @ shape.pose)
+    if isinstance(shape, HalfSpace):
+        n = R @ shape.normal
+        n = n / np.linalg.norm(n)
+        return HalfSpace(n, shape.offset + float(n @ t))
+    if isinstance(shape, Convex):
+        return Convex(shape.vertices @ R.T + t)
+    if isinstance(shape, TriMesh):
+        return TriMesh(shape.vertices @ R.T + t, shape.faces, shape.watertight, shape.source)
+    raise TypeError(f"not a shape: {type(shape).__name__}")
+
+
+def interior_point(shape) -> np.ndarray:
+    """``(3,)`` a point of the solid (for a mesh: its first vertex, which lies on its boundary)."""
+    if isinstance(shape, Sphere):
+        return np.array(shape.center)
+    if isinstance(shape, Capsule):
+        return np.array(shape.p0)
+    if isinstance(shape, (Box, Cylinder)):
+        return np.array(shape.pose[:3, 3])
+    if isinstance(shape, Convex):
+        return shape.vertices.mean(axis=0)
+    if isinstance(shape, TriMesh):
+        return np.array(shape.vertices[0])
+    if isinstance(shape, HalfSpace):
+        return shape.normal * shape.offset
+    raise TypeError(f"not a shape: {type(shape).__name__}")
+
+
+def bounding_sphere(shape) -> tuple[np.ndarray, float]:
+    """``(center (3,), radius)`` of a sphere that contains the solid (not minimal; exact for spheres).
+
+    A ``HalfSpace`` is unbounded: radius ``inf``.
+    """
+    if isinstance(shape, Sphere):
+        return np.array(shape.center), shape.radius
+    if isinstance(shape, Capsule):
+        return 0.5 * (shape.p0 + shape.p1), 0.5 * float(np.linalg.norm(shape.p1 - shape.p0)) + shape.radius
+    if isinstance(shape, Box):
+        return np.array(shape.pose[:3, 3]), 0.5 * float(np.linalg.norm(shape.extents))
+    if isinstance(shape, Cylinder):
+        return np.array(shape.pose[:3, 3]), float(np.hypot(shape.radius, 0.5 * shape.length))
+    if isinstance(shape, (Convex, TriMesh)):
+        v = np.asarray(shape.vertices)
+        c = 0.5 * (v.min(axis=0) + v.max(axis=0))
+        return c, float(np.sqrt(((v - c) ** 2).sum(axis=1).max()))
+    if isinstance(shape, HalfSpace):
+        return shape.normal * shape.offset, np.inf
+    raise TypeError(f"not a shape: {type(shape).__name__}")
+
+
+def support(shape, directions) -> np.ndarray:
+    """Support function ``h(u) = max over x in the solid of u . x``.
+
+    Parameters
+    ----------
+    directions : (k, 3) or (3,) float
+        Need not be unit vectors (``h`` is positively homogeneous).
+
+    Returns
+    -------
+    (k,) float64, or a float for a single direction. ``inf`` for a half-space except along its normal.
+    """
+    u, single = _promote(directions)
+    if isinstance(shape, Sphere):
+        h = u @ shape.center + shape.radius * np.sqrt((u * u).sum(axis=1))
+    elif isinstance(shape, Capsule):
+        h = np.maximum(u @ shape.p0, u @ shape.p1) + shape.radius * np.sqrt((u * u).sum(axis=1))
+    elif isinstance(shape, Box):
+        R, t = shape.pose[:3, :3], shape.pose[:3, 3]
+        h = u @ t + np.abs(u @ R) @ (0.5 * shape.extents)
+    elif isinstance(shape, Cylinder):
+        z, c = shape.pose[:3, 2], shape.pose[:3, 3]
+        uz = u @ z
+        radial = np.sqrt(np.maximum((u * u).sum(axis=1) - uz * uz, 0.0))
+        h = u @ c + 0.5 * shape.length * np.abs(uz) + shape.radius * radial
+    elif isinstance(shape, (Convex, TriMesh)):
+        h = (u @ shape.vertices.T).max(axis=1)
+    elif isinstance(shape, HalfSpace):
+        un = u @ shape.normal
+        off = u - un[:, None] * shape.normal
+        along = (un > 0) & ((off * off).sum(axis=1) <= 1e-24 * np.maximum((u * u).sum(axis=1), 1e-300))
+        h = np.where(along, un * shape.offset, np.inf)
+    else:
+        raise TypeError(f"not a shape: {type(shape).__name__}")
+    return float(h[0]) if single else h
+
+
+def support_point(shape, directions) -> np.ndarray:
+    """A point of the solid where the support function is attained, ``(k, 3)`` (or ``(3,)``).
+
+    Not defined for a half-space (raises ``TypeError``).
+    """
+    u, single = _promote(directions)
+    norm = np.sqrt((u * u).sum(axis=1))
+    unit = u / np.where(norm > 0, norm, 1.0)[:, None]
+    if isinstance(shape, Sphere):
+        p = shape.center + shape.radius * unit
+    elif isinstance(shape, Capsule):
+        a, b = u @ shape.p0, u @ shape.p1
+        base = np.where((a >= b)[:, None], shape.p0, shape.p1)
+        p = base + shape.radius * unit
+    elif isinstance(shape, Box):
+        R, t = shape.pose[:3, :3], shape.pose[:3, 3]
+        s = np.sign(u @ R) * (0.5 * shape.extents)
+        p = t + s @ R.T
+    elif isinstance(shape, Cylinder):
+        z, c = shape.pose[:3, 2], shape.pose[:3, 3]
+        uz = u @ z
+        radial = u - uz[:, None] * z
+        rn = np.sqrt((radial * radial).sum(axis=1))
+        radial = radial / np.where(rn > 0, rn, 1.0)[:, None]
+        p = c + (0.5 * shape.length * np.sign(uz))[:, None] * z + shape.radius * radial
+    elif isinstance(shape, (Convex, TriMesh)):
+        p = shape.vertices[np.argmax(u @ shape.vertices.T, axis=1)]
+    else:
+        raise TypeError(f"no support point for {type(shape).__name__}")
+    return p[0] if single else p
+
+
+def _trimesh_of(shape):
+    import trimesh
+
+    return _cached(
+        shape, "trimesh", lambda: trimesh.Trimesh(np.array(shape.vertices), np.array(shape.faces), process=False)
+    )
+
+
+def contains_points(shape, points, tol: float = 0.0) -> np.ndarray:
+    """``(k,)`` bool: each point lies in the solid (boundary included, widened by ``tol`` metres).
+
+    A watertight ``TriMesh`` is tested as the solid it encloses (trimesh's ray test, ``tol`` ignored);
+    a non-watertight mesh is a surface and contains no point.
+    """
+    p, single = _promote(points)
+    if isinstance(shape, Sphere):
+        inside = ((p - shape.center) ** 2).sum(axis=1) <= (shape.radius + tol) ** 2
+    elif isinstance(shape, Capsule):
+        d = shape.p1 - shape.p0
+        dd = float(d @ d)
+        t = np.zeros(len(p)) if dd == 0 else np.clip((p - shape.p0) @ d / dd, 0.0, 1.0)
+        c = shape.p0 + t[:, None] * d
+        inside = ((p - c) ** 2).sum(axis=1) <= (shape.radius + tol) ** 2
+    elif isinstance(shape, Box):
+        local = (p - shape.pose[:3, 3]) @ shape.pose[:3, :3]
+        inside = (np.abs(local) <= 0.5 * shape.extents + tol).all(axis=1)
+    elif isinstance(shape, Cylinder):
+        local = (p - shape.pose[:3, 3]) @ shape.pose[:3, :3]
+        inside = (np.abs(local[:, 2]) <= 0.5 * shape.length + tol) & (
+            local[:, 0] ** 2 + local[:, 1] ** 2 <= (shape.radius + tol) ** 2
+        )
+    elif isinstance(shape, HalfSpace):
+        inside = p @ shape.normal <= shape.offset + tol
+    elif isinstance(shape, Convex):
+        eq = hull_equations(shape)
+        inside = (p @ eq[:, :3].T + eq[:, 3] <= tol).all(axis=1)
+    elif isinstance(shape, TriMesh):
+        inside = np.asarray(_trimesh_of(shape).contains(p), dtype=bool) if shape.watertight else np.zeros(len(p), bool)
+    else:
+        raise TypeError(f"not a shape: {type(shape).__name__}")
+    return bool(inside[0]) if single else inside

@@ -66,7 +66,9 @@ def validate_pose(pose, *, item: str | None = None, file=None) -> np.ndarray:
     if arr.ndim < 2 or arr.shape[-2:] != (4, 4):
         raise PoseError(f"expected shape (4, 4) or (n, 4, 4), got {arr.shape}", file=file, item=where)
     flat = arr.reshape(-1, 4, 4)
-    idx = lambda i: None if arr.ndim == 2 else int(i)  # noqa: E731
+
+    def idx(i):  # the index in the caller's batch shape: "3" for (n, 4, 4), "1, 0" for (m, n, 4, 4)
+        return None if arr.ndim == 2 else ", ".join(str(int(k)) for k in np.unravel_index(i, arr.shape[:-2]))
 
     bad = ~np.isfinite(flat).all(axis=(1, 2))
     if bad.any():
@@ -175,7 +177,17 @@ def euler_from_rotation(rotation, convention: str = "fixed-xyz") -> np.ndarray:
     intrinsic, axes = parse_convention(convention)
     R = np.asarray(rotation, dtype=np.float64)
     if not intrinsic:  # fixed (a about i, b about j, c about k) == intrinsic (c about k, b about j, a about i)
-        return euler_from_rotation(R, "euler-" + "xyz"[axes[2]] + "xyz"[axes[1]] + "xyz"[axes[0]])[..., ::-1]
+        out = euler_from_rotation(R, "euler-" + "xyz"[axes[2]] + "xyz"[axes[1]] + "xyz"[axes[0]])[..., ::-1]
+        # At gimbal lock that call zeroed its third angle, which is our first; zero our third instead, as
+        # documented: R = R_j(b) R_i(a), so R_i(a) = R_j(b)^T R.
+        b = out[..., 1]
+        lock = (np.abs(np.sin(b)) if axes[0] == axes[2] else np.abs(np.cos(b))) < 1e-12
+        if np.any(lock):
+            M = np.swapaxes(_elementary(axes[1], b), -1, -2) @ R
+            p, q = [(1, 2), (2, 0), (0, 1)][axes[0]]
+            a = np.arctan2(M[..., q, p], M[..., p, p])
+            out = np.where(lock[..., None], np.stack([a, b, np.zeros_like(b)], axis=-1), out)
+        return out
     i, j, k = axes
     symmetric = i == k
     if symmetric:

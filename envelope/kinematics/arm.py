@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import InputError
+from .chain import Chain, forward
 
 N_JOINTS = 6
 CONVENTIONS = ("standard", "modified")
@@ -171,11 +172,53 @@ class Arm:
         q = np.asarray(q, dtype=np.float64)
         if q.shape[-1:] != (N_JOINTS,):
             raise InputError(f"joint values must have shape (6,) or (n, 6), got {q.shape}")
-        theta = q + self.offset
-        T = _dh_link(theta[..., 0], self.d[0], self.a[0], self.alpha[0], self.convention)
-        for i in range(1, N_JOINTS):
-            T = T @ _dh_link(theta[..., i], self.d[i], self.a[i], self.alpha[i], self.convention)
-        return T
+        return forward(self.chain, q + self.offset).matrix()
+
+    # ------------------------------------------------------------------ inverse kinematics
+    @property
+    def chain(self) -> Chain:
+        """The DH table as the convention-free joint-axis chain of ``chain.py``."""
+        if "chain" not in self._cache:
+            self._cache["chain"] = Chain.from_dh(self.a, self.alpha, self.d, self.convention)
+        return self._cache["chain"]
+
+    @property
+    def spherical_wrist(self) -> bool:
+        """True if axes 4, 5 and 6 meet in one point (then IK is closed form and complete)."""
+        from .pieper import is_spherical
+
+        return is_spherical(self.chain)
+
+    @property
+    def _pieper(self):
+        if "pieper" not in self._cache:
+            from .pieper import PieperModel
+
+            self._cache["pieper"] = PieperModel.build(self.chain, np.asarray(self.offset))
+        return self._cache["pieper"]
+
+    def ik(self, base_from_flange, *, n_starts: int | None = None):
+        """Every inverse-kinematics solution of a flange pose.
+
+        Parameters
+        ----------
+        base_from_flange : (4, 4) or (..., 4, 4) array_like
+            Target pose(s) of the flange (frame 6) in the base frame, metres. For a TCP target use
+            ``base_from_tcp @ inv(flange_from_tcp)``.
+        n_starts : int, optional
+            Start configurations of the numerical solver (arms without a spherical wrist);
+            64 for one pose, 32 per pose in a batch by default.
+
+        Returns
+        -------
+        IKSolutions for one pose, IKBatch for a batch (see ``envelope.kinematics.ik``).
+        """
+        from .ik import ik_batch, ik_single
+
+        T = np.asarray(base_from_flange, dtype=np.float64)
+        if T.ndim == 2:
+            return ik_single(self, T, **({} if n_starts is None else {"n_starts": n_starts}))
+        return ik_batch(self, T, **({} if n_starts is None else {"n_starts": n_starts}))
 
     def joint_axes(self, q) -> tuple[np.ndarray, np.ndarray]:
         """Points on, and unit directions of, the six joint axes in the base frame.

@@ -1,0 +1,390 @@
+"""The check: every target of a cell in every IK branch, with clearance, as one row per target x branch.
+
+``run_check(cell)`` returns a ``CheckResult``; the report module writes it to files.
+
+Row statuses (``BranchRow.status``), most severe first:
+
+- ``intrusion``: the arm or tool inside a zone (overlap), or a self-contact;
+- ``below margin``: some pair between 0 and its required clearance;
+- ``outside limits``: the branch exists but a joint is outside its range; its clearance is still
+  computed and shown in ``clearance_status``;
+- ``unreachable``: the target has no branch at all (the reason is in ``note``);
+- ``clear``: every pair at or above its required clearance.
+
+Singularity is a flag on a row (``singular``), not a status.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .cell import Cell
+from .clearance import STATUS_NAMES
+from .errors import EXIT_CLEAR, EXIT_FINDING, InputError
+
+CLEAR = "clear"
+BELOW_MARGIN = "below margin"
+INTRUSION = "intrusion"
+OUTSIDE_LIMITS = "outside limits"
+UNREACHABLE = "unreachable"
+ALLOWED_CONTACT = "allowed contact"
+
+STATUS_SEVERITY = {INTRUSION: 0, BELOW_MARGIN: 1, OUTSIDE_LIMITS: 2, UNREACHABLE: 3, CLEAR: 4}
+"""Sort key for 'worst rows first'."""
+
+
+@dataclass(frozen=True, eq=False)
+class PairRow:
+    """The clearance of one pair (a body against a zone panel or another body) in one configuration.
+
+    Lengths in metres; points in the cell (world) frame. ``distance`` is the certified lower bound
+    (never more than the true distance); a negative value is a penetration depth when
+    ``depth_known``. ``pruned`` pairs were not queried exactly: ``distance`` is a valid lower bound
+    only and the witness points are NaN.
+    """
+
+    body: str
+    other: str
+    kind: str  # "zone" or "self"
+    zone_kind: str  # the zone's kind, "" for self pairs
+    panel: str
+    required: float
+    distance: float
+    distance_upper: float
+    depth_known: bool
+    pruned: bool
+    witness_body: np.ndarray
+    witness_other: np.ndarray
+    status: str
+
+
+@dataclass(frozen=True, eq=False)
+class BranchRow:
+    """One target in one IK branch (or the single row of an unreachable target).
+
+    Attributes
+    ----------
+    q : (6,) float
+        Joint values in radians (NaN for an unreachable target).
+    limit_excess : (6,) float
+        Radians beyond the joint's range (0 where within).
+    clearance, required, margin : float
+        Metres: the worst pair's certified clearance, its required clearance and their difference
+        (NaN for an unreachable target).
+    twin_of : int
+        Index (in ``CheckResult.rows``) of the geometrically identical row this turn variant shares
+        its computation with; -1 for a row computed on its own.
+    """
+
+    target: str
+    target_frame: str
+    branch: str
+    turn: int
+    twin_of: int
+    status: str
+    clearance_status: str
+    q: np.ndarray
+    limit_excess: np.ndarray
+    singular: tuple
+    clearance: float
+    required: float
+    margin: float
+    closest_body: str
+    closest_other: str
+    witness_body: np.ndarray
+    witness_other: np.ndarray
+    pairs: tuple = ()
+    note: str = ""
+
+
+@dataclass(frozen=True, eq=False)
+class CheckResult:
+    """Everything a check found: the cell, one row per target x branch, and motions (if any)."""
+
+    cell: Cell
+    rows: tuple
+    motions: tuple = ()
+    warnings: tuple = ()
+    timings: dict = field(default_factory=dict)
+
+    def worst_first(self) -> list:
+        """Row indices sorted worst first: by status severity, then by margin."""
+        return sorted(
+            range(len(self.rows)),
+            key=lambda i: (
+                STATUS_SEVERITY[self.rows[i].status],
+                np.inf if np.isnan(self.rows[i].margin) else self.rows[i].margin,
+                i,
+            ),
+        )
+
+    @property
+    def exit_code(self) -> int:
+        """0 when every target has a within-limits branch and all of those are clear, else 1."""
+        return EXIT_CLEAR if self.verdict == CLEAR else EXIT_FINDING
+
+    @property
+    def verdict(self) -> str:
+        """``clear``, or the most severe finding among within-limits branches and targets."""
+        return min(self.findings(), key=STATUS_SEVERITY.__getitem__, default=CLEAR)
+
+    def findings(self) -> list:
+        """The statuses that count as findings, one per offending target (and motion).
+
+        A within-limits branch that is not clear is a finding; so is a target with no within-limits
+        branch at all (its rows are all ``outside limits`` or it is ``unreachable``): the program
+        could not run it. Branches outside limits of a target that has a within-limits branch are
+        shown but are not findings.
+        """
+        out = []
+        by_target: dict = {}
+        for row in self.rows:
+            by_target.setdefault(row.target, []).append(row)
+        for rows in by_target.values():
+            runnable = [r for r in rows if r.status not in (OUTSIDE_LIMITS, UNREACHABLE)]
+            if not runnable:
+                out.append(min((r.status for r in rows), key=STATUS_SEVERITY.__getitem__))
+            out.extend(r.status for r in runnable if r.status != CLEAR)
+        out.extend(m.status for m in self.motions if m.status != CLEAR)
+        return out
+
+
+class PairRows(Sequence):
+    """The per-pair table of one row, read lazily from the engine's arrays (a sequence of PairRow).
+
+    ``pairs`` are the engine's pair definitions, ``result`` one configuration's ``ClearanceResult``;
+    ``zone_kinds`` maps zone names to their kind.
+    """
+
+    def __init__(self, pairs, result, zone_kinds):
+        self.defs = pairs
+        self.result = result
+        self.zone_kinds = zone_kinds
+
+    def __len__(self) -> int:
+        return len(self.defs)
+
+    def __getitem__(self, i):
+        if isinstance(i, slice):
+            return [self[j] for j in range(*i.indices(len(self)))]
+        p, r = self.defs[i], self.result
+        return PairRow(
+            body=p.body,
+            other=p.other,
+            kind=p.kind,
+            zone_kind=self.zone_kinds.get(p.zone, "") if p.kind == "zone" else "",
+            panel=p.panel,
+            required=p.required,
+            distance=float(r.distance[i]),
+            distance_upper=float(r.distance_upper[i]),
+            depth_known=bool(r.depth_known[i]),
+            pruned=bool(r.pruned[i]),
+            witness_body=r.witness_body[i],
+            witness_other=r.witness_other[i],
+            status=STATUS_NAMES[int(r.status[i])],
+        )
+
+
+def _joint_note(excess) -> str:
+    parts = [
+        f"joint {j + 1} {'above' if e > 0 else 'below'} its range by {abs(np.degrees(e)):.3f} deg"
+        for j, e in enumerate(excess)
+        if e != 0
+    ]
+    return "; ".join(parts)
+
+
+def _singular_flags(sol, k) -> tuple:
+    names = ("wrist", "shoulder", "elbow")
+    flags = (sol.singular_wrist[k], sol.singular_shoulder[k], sol.singular_elbow[k])
+    return tuple(n for n, f in zip(names, flags) if f)
+
+
+def _evaluate(cell, q, *, jobs, progress, prune, chunk=256):
+    """Clearance of configurations ``q (n, 6)``, in chunks, in this process or ``jobs`` workers."""
+    from .clearance import ClearanceResult, engine_for, evaluate_in_worker, init_worker
+
+    chunks = [q[i:i + chunk] for i in range(0, len(q), chunk)]
+    parts = []
+    report = progress or (lambda done, total: None)
+    if jobs <= 1 or len(chunks) <= 1:
+        engine = engine_for(cell, prune)
+        for c in chunks:
+            parts.append(engine.evaluate(c))
+            report(sum(len(p.overall) for p in parts), len(q))
+    else:
+        from concurrent.futures import ProcessPoolExecutor
+
+        with ProcessPoolExecutor(jobs, initializer=init_worker, initargs=(cell, prune)) as pool:
+            for part in pool.map(evaluate_in_worker, chunks):
+                parts.append(part)
+                report(sum(len(p.overall) for p in parts), len(q))
+    return ClearanceResult.concatenate(parts), engine_for(cell, prune).pairs
+
+
+def solve_targets(cell: Cell) -> list:
+    """Every IK solution (``IKSolutions``) of every target of ``cell``, in target order."""
+    if not cell.targets:
+        return []
+    world_from_tcp = np.stack([t.world_from_tcp for t in cell.targets])
+    base_from_flange = cell.base_from_flange(world_from_tcp)
+    return [cell.arm.ik(T) for T in base_from_flange]
+
+
+def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True) -> CheckResult:
+    """Check every target of ``cell`` in every IK branch (turn variants included).
+
+    Parameters
+    ----------
+    cell : Cell
+    jobs : int
+        Worker processes for the clearance computation; results are identical for any value.
+    progress : callable(done, total), optional
+        Called as configurations are evaluated.
+    prune : bool
+        Skip exact distance queries that cannot change a status or the worst pair (never changes
+        a result; ``False`` computes every pair exactly).
+
+    Returns
+    -------
+    CheckResult
+        One row per target x branch (one row for an unreachable target), in target order.
+    """
+    if not cell.targets:
+        raise InputError("the cell has no targets to check", file=cell.source or None, item="targets")
+    timings = {}
+    t0 = time.perf_counter()
+    solutions = solve_targets(cell)
+    t1 = time.perf_counter()
+    timings["ik_s"] = t1 - t0
+
+    # Only branches are computed; a turn variant shares its twin's geometry and clearance.
+    configs, index_of = [], {}
+    for t, sol in enumerate(solutions):
+        for k in range(len(sol)):
+            if sol.twin[k] == k:
+                index_of[(t, k)] = len(configs)
+                configs.append(sol.q[k])
+    q = np.array(configs, dtype=np.float64).reshape(-1, 6)
+    if len(q):
+        clearance, pair_defs = _evaluate(cell, q, jobs=jobs, progress=progress, prune=prune)
+    else:
+        clearance, pair_defs = None, ()
+    t2 = time.perf_counter()
+    timings["clearance_s"] = t2 - t1
+
+    zone_kinds = {z.name: z.kind for z in cell.zones}
+    rows = []
+    nan3 = np.full(3, np.nan)
+    for t, (target, sol) in enumerate(zip(cell.targets, solutions)):
+        if len(sol) == 0:
+            rows.append(
+                BranchRow(
+                    target=target.name, target_frame=target.frame, branch="", turn=0, twin_of=-1,
+                    status=UNREACHABLE, clearance_status="", q=np.full(6, np.nan), limit_excess=np.zeros(6),
+                    singular=(), clearance=np.nan, required=np.nan, margin=np.nan, closest_body="",
+                    closest_other="", witness_body=nan3, witness_other=nan3, pairs=(), note=sol.reason,
+                )
+            )
+            continue
+        first_row = {}
+        turns = {}
+        reps = sorted((k for k in range(len(sol)) if sol.twin[k] == k), key=lambda k: (int(sol.code[k]), k))
+        order = [j for k in reps for j in range(len(sol)) if sol.twin[j] == k]
+        for k in order:
+            rep = int(sol.twin[k])
+            res = clearance._index(index_of[(t, rep)])
+            worst = int(res.worst)
+            notes = []
+            if worst >= 0:
+                p = pair_defs[worst]
+                dist = float(res.distance[worst])
+                required = float(p.required)
+                margin = dist - required
+                clearance_status = STATUS_NAMES[int(res.overall)]
+                closest_body, closest_other = p.body, p.other + (f"/{p.panel}" if p.panel else "")
+                wb, wo = res.witness_body[worst], res.witness_other[worst]
+                if clearance_status == INTRUSION and not bool(res.depth_known[worst]):
+                    notes.append("overlap, depth unknown")
+            else:
+                dist = required = margin = np.nan
+                clearance_status = CLEAR
+                closest_body = closest_other = ""
+                wb = wo = nan3
+                notes.append("no pair to check")
+            within = bool(sol.within_limits[k].all())
+            status = clearance_status if within else OUTSIDE_LIMITS
+            if not within:
+                notes.append(_joint_note(sol.excess[k]))
+            singular = _singular_flags(sol, k)
+            if "wrist" in singular:
+                notes.append("wrist singular: only q4 + q6 is fixed, one representative shown")
+            if rep != k:
+                turns[rep] = turns.get(rep, 0) + 1
+                notes.append(f"turn variant of the {sol.labels[rep]} branch")
+            rows.append(
+                BranchRow(
+                    target=target.name, target_frame=target.frame, branch=sol.labels[k],
+                    turn=turns.get(rep, 0) if rep != k else 0,
+                    twin_of=first_row[rep] if rep != k else -1,
+                    status=status, clearance_status=clearance_status, q=sol.q[k].copy(),
+                    limit_excess=sol.excess[k].copy(), singular=singular, clearance=dist,
+                    required=required, margin=margin, closest_body=closest_body,
+                    closest_other=closest_other, witness_body=wb, witness_other=wo,
+                    pairs=PairRows(pair_defs, res, zone_kinds) if worst >= 0 or len(pair_defs) else (),
+                    note="; ".join(notes),
+                )
+            )
+            if rep == k:
+                first_row[k] = len(rows) - 1
+    timings["rows_s"] = time.perf_counter() - t2
+    return CheckResult(cell=cell, rows=tuple(rows), warnings=tuple(cell.warnings), timings=timings)
+
+
+def solve_pose(cell: Cell, xyz_mm, angles_deg, *, frame: str = "world", convention: str = "fixed-xyz") -> dict:
+    """The branch table of one TCP pose given in file units (mm, degrees) in a named frame.
+
+    Returns a plain dict (JSON-ready, mm and degrees): ``summary``, ``reason``, ``branches`` (each
+    with ``branch``, ``q_deg``, ``within_limits``, ``excess_deg``, ``singular``, ``turn_of``,
+    ``notes``).
+    """
+    from .poses import pose_from_euler
+    from .units import to_degrees, to_metres, to_radians
+
+    if frame != "world" and frame not in cell.frames:
+        known = ", ".join(sorted(cell.frames)) or "none"
+        raise InputError(f"unknown frame {frame!r} (known frames: world, {known})", item="--frame")
+    world_from_frame = np.eye(4) if frame == "world" else cell.frames[frame]
+    frame_from_tcp = pose_from_euler(to_metres(xyz_mm, "mm"), to_radians(angles_deg, "deg"), convention)
+    base_from_flange = cell.base_from_flange(world_from_frame @ frame_from_tcp)
+    sol = cell.arm.ik(base_from_flange)
+    branches = []
+    for k in range(len(sol)):
+        notes = []
+        if not sol.within_limits[k].all():
+            notes.append(_joint_note(sol.excess[k]))
+        singular = _singular_flags(sol, k)
+        if singular:
+            notes.append("singular: " + ", ".join(singular))
+        if sol.twin[k] != k:
+            notes.append(f"turn variant of {sol.labels[sol.twin[k]]}")
+        branches.append(
+            {
+                "branch": sol.labels[k],
+                "q_deg": [round(float(v), 6) for v in to_degrees(sol.q[k])],
+                "within_limits": bool(sol.within_limits[k].all()),
+                "excess_deg": [round(float(v), 6) for v in to_degrees(sol.excess[k])],
+                "singular": list(singular),
+                "turn_of": "" if sol.twin[k] == k else sol.labels[sol.twin[k]],
+                "notes": "; ".join(notes),
+            }
+        )
+    n_ok = sum(b["within_limits"] for b in branches)
+    summary = f"{len(branches)} solutions, {n_ok} within limits ({sol.method}"
+    summary += ", complete)" if sol.complete else f", not guaranteed complete: {sol.starts} starts)"
+    return {"summary": summary, "reason": sol.reason, "branches": branches, "method": sol.method,
+            "complete": bool(sol.complete)}

@@ -1,0 +1,239 @@
+"""The ``envelope`` command: a thin layer over library calls.
+
+Exit codes (every command): 0 clear, 1 a finding, 2 bad input, 3 an internal error. Every error is
+one readable line on stderr naming the file, the item and what is wrong.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import sys
+from pathlib import Path
+
+import click
+
+from . import __version__
+from .errors import EXIT_BAD_INPUT, EXIT_CLEAR, EXIT_INTERNAL, EnvelopeError, InputError
+
+CAUTION_HELP = (
+    "CAUTION: a design aid for pre-checking zones and clearances. It does not replace the risk "
+    "assessment by a competent person, validation of the safety functions, the arm maker's stopping "
+    "data, or the applicable law and codes, which take precedence. Results are only as good as the "
+    "meshes and parameters given; clearances exclude stopping distance unless it is entered."
+)
+
+
+def _fail(message: str, code: int) -> None:
+    click.echo(f"envelope: error: {message}", err=True)
+    sys.exit(code)
+
+
+def _guarded(func):
+    """Map envelope's errors to one line on stderr and an exit code; never a traceback for bad input."""
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        try:
+            return func(*args, **kwargs)
+        except InputError as exc:
+            _fail(str(exc), EXIT_BAD_INPUT)
+        except EnvelopeError as exc:
+            _fail(str(exc), exc.exit_code)
+        except OSError as exc:
+            where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
+            _fail(f"{where}{exc.strerror or exc}", EXIT_BAD_INPUT)
+        except KeyboardInterrupt:
+            _fail("interrupted; no output file was left half-written", EXIT_INTERNAL)
+        except Exception as exc:  # a bug in envelope: still one line, with a way to see more
+            if "--debug" in sys.argv or _debug_env():
+                raise
+            _fail(
+                f"internal error ({type(exc).__name__}: {exc}); set ENVELOPE_DEBUG=1 for a traceback "
+                "and please report it",
+                EXIT_INTERNAL,
+            )
+
+    return wrapper
+
+
+def _debug_env() -> bool:
+    import os
+
+    return os.environ.get("ENVELOPE_DEBUG", "") not in ("", "0")
+
+
+class _Progress:
+    """A progress bar on stderr, silent when stderr is not a terminal."""
+
+    def __init__(self, label: str):
+        self.label = label
+        self.bar = None
+        self.enabled = sys.stderr.isatty()
+
+    def __call__(self, done: int, total: int) -> None:
+        if not self.enabled or total <= 0:
+            return
+        if self.bar is None:
+            self.bar = click.progressbar(length=total, label=self.label, file=sys.stderr)
+            self.bar.__enter__()
+        self.bar.update(done - self.bar.pos)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.__exit__(None, None, None)
+            self.bar = None
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="envelope")
+def main() -> None:
+    """Safety-envelope and clearance checks for six-axis industrial robot arms.
+
+    Every target of a cell file, in every inverse-kinematics branch, against every fence, guard and
+    keep-out zone. Exit codes: 0 clear, 1 a finding, 2 bad input, 3 internal error.
+    """
+
+
+def _summary_line(result) -> str:
+    counts: dict = {}
+    for row in result.rows:
+        counts[row.status] = counts.get(row.status, 0) + 1
+    parts = ", ".join(f"{n} {s}" for s, n in sorted(counts.items()))
+    return f"verdict: {result.verdict.upper()}  ({len(result.rows)} target x branch rows: {parts})"
+
+
+def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool):
+    from .cell import load_cell
+    from .check import run_check
+    from .report import write_report
+
+    cell = load_cell(cell_path)
+    progress = _Progress("checking")
+    try:
+        result = run_check(cell, jobs=jobs, progress=progress)
+    finally:
+        progress.close()
+    files = write_report(result, out)
+    if as_json:
+        click.echo(json.dumps(_json_summary(result, files), indent=2, sort_keys=True))
+    else:
+        click.echo(_summary_line(result))
+        for row_index in result.worst_first()[:10]:
+            row = result.rows[row_index]
+            if row.status == "clear":
+                break
+            click.echo(f"  {_row_text(row)}")
+        click.echo(f"report: {files['report.html']}")
+    return result
+
+
+def _row_text(row) -> str:
+    import numpy as np
+
+    from .units import to_mm
+
+    if np.isnan(row.clearance):
+        return f"{row.target:<20} {row.branch:<14} {row.status:<15} {row.note}"
+    return (
+        f"{row.target:<20} {row.branch:<14} {row.status:<15} clearance {to_mm(row.clearance):9.1f} mm "
+        f"(required {to_mm(row.required):.0f}) {row.closest_body} - {row.closest_other}"
+        + (f"  [{row.note}]" if row.note else "")
+    )
+
+
+def _json_summary(result, files) -> dict:
+    return {
+        "verdict": result.verdict,
+        "exit_code": result.exit_code,
+        "rows": len(result.rows),
+        "findings": len(result.findings()),
+        "files": {name: str(path) for name, path in files.items()},
+    }
+
+
+@main.command(epilog=CAUTION_HELP)
+@click.argument("cell", type=click.Path(path_type=Path))
+@click.option("--out", "out", type=click.Path(path_type=Path), default=Path("envelope-report"),
+              show_default=True, help="Folder for the clearance table, report and scenes.")
+@click.option("--jobs", type=click.IntRange(1, 256), default=1, show_default=True,
+              help="Worker processes for the clearance computation (results are identical).")
+@click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary on stdout.")
+@_guarded
+def check(cell: Path, out: Path, jobs: int, as_json: bool) -> None:
+    """Check every target of CELL in every IK branch (and its programs, if any).
+
+    Writes clearance.csv, clearance.json, report.html, report.pdf and .glb scenes to --out.
+    Exit code 0 when every target has a within-limits branch and every such branch (and motion) is
+    clear, 1 when there is any finding, 2 for bad input.
+    """
+    result = _run_check_and_report(cell, out, jobs, as_json)
+    sys.exit(result.exit_code)
+
+
+@main.command(epilog=CAUTION_HELP)
+@click.argument("cell", type=click.Path(path_type=Path))
+@click.option("--pose", required=True, metavar='"X Y Z RX RY RZ"',
+              help="TCP pose: position in mm and Euler angles in degrees (see --convention).")
+@click.option("--frame", default="world", show_default=True, help="Frame the pose is given in.")
+@click.option("--convention", default="fixed-xyz", show_default=True,
+              help="Euler convention of RX RY RZ (fixed-xyz = roll-pitch-yaw about fixed axes).")
+@click.option("--json", "as_json", is_flag=True, help="Print the branch table as JSON.")
+@_guarded
+def solve(cell: Path, pose: str, frame: str, convention: str, as_json: bool) -> None:
+    """Print every IK branch of one TCP pose for the arm of CELL (no clearance check)."""
+    from .cell import load_cell
+    from .check import solve_pose
+
+    cell_model = load_cell(cell)
+    try:
+        values = [float(v) for v in pose.replace(",", " ").split()]
+    except ValueError:
+        raise InputError(f"expected 6 numbers, got {pose!r}", item="--pose") from None
+    if len(values) != 6:
+        raise InputError(f"expected 6 numbers (x y z in mm, 3 angles in deg), got {len(values)}", item="--pose")
+    table = solve_pose(cell_model, values[:3], values[3:], frame=frame, convention=convention)
+    if as_json:
+        click.echo(json.dumps(table, indent=2, sort_keys=True))
+        return
+    click.echo(f"pose {pose!r} in frame {frame!r}: {table['summary']}")
+    if not table["branches"]:
+        click.echo(f"  no solution: {table['reason']}")
+        return
+    click.echo(f"  {'branch':<16}{'q1':>9}{'q2':>9}{'q3':>9}{'q4':>9}{'q5':>9}{'q6':>9}  notes")
+    for b in table["branches"]:
+        qs = "".join(f"{v:9.3f}" for v in b["q_deg"])
+        click.echo(f"  {b['branch']:<16}{qs}  {b['notes']}")
+
+
+@main.command()
+@click.option("--out", "out", type=click.Path(path_type=Path), default=Path("envelope-demo"),
+              show_default=True, help="Folder for the demo report.")
+@click.option("--jobs", type=click.IntRange(1, 256), default=1, show_default=True)
+@_guarded
+def demo(out: Path, jobs: int) -> None:
+    """Run the check on the bundled demo cell and say where the report is.
+
+    The demo cell is designed to show every status, so it always has findings; the command exits 0
+    when the report was written.
+    """
+    from .demo import demo_cell_path
+
+    click.echo(f"demo cell: {demo_cell_path()}")
+    _run_check_and_report(demo_cell_path(), out, jobs, as_json=False)
+    sys.exit(EXIT_CLEAR)
+
+
+@main.command()
+@click.argument("folder", type=click.Path(path_type=Path))
+@_guarded
+def init(folder: Path) -> None:
+    """Write a commented starter cell file and targets CSV into FOLDER, to edit."""
+    from .starter import write_starter
+
+    for path in write_starter(folder):
+        click.echo(f"wrote {path}")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,104 @@
+"""Branch labels, singularity measures, joint-limit placement and turn variants of IK solutions.
+
+Branch label ``"<shoulder>-<elbow>-<wrist>"``, computed from the geometry of the solution (never from
+its slot), with ``w`` the wrist centre (for an arm without a spherical wrist: the foot on axis 5 of
+the common normal of axes 4 and 5), ``o_i`` / ``z_i`` a point on / the direction of joint axis i
+(``o_2``: foot on axis 2 of the common normal from axis 1; ``o_3``: foot on axis 3 of the common
+normal from axis 2), ``x_1`` the x axis of DH frame 1:
+
+- shoulder ``front`` if ``(w - o_1) . x_1 >= 0``, else ``back``;
+- elbow: ``u = w - o_2``, ``m = z_2 x u`` turned so that ``m . z_1 >= 0`` (``m . x_1`` if that is 0);
+  ``up`` if ``(o_3 - o_2) . m >= 0``, else ``down``;
+- wrist ``pos`` if ``(z_4 x z_6) . z_5 >= 0``, else ``neg``. For the usual wrists (twists -90/+90 deg in
+  standard DH, +90/-90 deg in modified DH) this is the sign of ``sin(theta_5)``.
+
+The integer code is ``4 * back + 2 * down + neg``; ``BRANCH_LABELS[code]`` is the label.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+BRANCH_LABELS = tuple(f"{s}-{e}-{w}" for s in ("front", "back") for e in ("up", "down") for w in ("pos", "neg"))
+"""The eight labels, indexed by branch code."""
+
+WRIST_SINGULAR_TOL = 1e-6
+"""Wrist singular: sine of the angle between axes 4 and 6 below this (only theta4 + theta6 fixed)."""
+SHOULDER_SINGULAR_TOL = 1e-6
+"""Shoulder singular: wrist centre closer than this (m) to axis 1."""
+ELBOW_SINGULAR_TOL = 1e-6
+"""Elbow singular: sine of the angle between the wrist-centre velocities of joints 2 and 3 below this
+(arm fully stretched or fully folded)."""
+SINGULAR_TOLS = np.array([WRIST_SINGULAR_TOL, SHOULDER_SINGULAR_TOL, ELBOW_SINGULAR_TOL])
+
+
+def _dot(u, v):
+    return np.einsum("...i,...i->...", u, v)
+
+
+def codes_from_geometry(w, o1, z1, x1, o2, z2, o3, wrist_sign) -> np.ndarray:
+    """``(...)`` int8 branch codes from ``(..., 3)`` points/axes and the wrist triple product."""
+    back = _dot(w - o1, x1) < 0
+    u = w - o2
+    m = np.cross(z2, u)
+    up_dir = _dot(m, z1)
+    alt = _dot(m, x1)
+    sgn = np.where(np.abs(up_dir) > 1e-12 * (np.linalg.norm(m, axis=-1) + 1e-300), np.sign(up_dir), np.sign(alt))
+    sgn = np.where(sgn == 0, 1.0, sgn)
+    down = sgn * _dot(o3 - o2, m) < 0
+    neg = wrist_sign < 0
+    return (4 * back + 2 * down + neg).astype(np.int8)
+
+
+def singularity_measures(w, o1, z1, o2, z2, o3, z3, wrist_sin) -> np.ndarray:
+    """``(..., 3)``: [sin(angle axis 4 / axis 6), distance of w from axis 1 (m), elbow sine]."""
+    r = w - o1
+    shoulder = np.linalg.norm(r - _dot(r, z1)[..., None] * z1, axis=-1)
+    j2 = np.cross(z2, w - o2)
+    j3 = np.cross(z3, w - o3)
+    n2, n3 = np.linalg.norm(j2, axis=-1), np.linalg.norm(j3, axis=-1)
+    elbow = np.linalg.norm(np.cross(j2, j3), axis=-1) / np.maximum(n2 * n3, 1e-300)
+    elbow = np.where(n2 * n3 > 1e-300, elbow, 0.0)
+    return np.stack([np.broadcast_to(wrist_sin, shoulder.shape), shoulder, elbow], axis=-1)
+
+
+def place_in_limits(q: np.ndarray, limits: np.ndarray):
+    """Place joint values in their ranges.
+
+    Each angle becomes the equivalent (``q + 2 pi m``) inside ``[lower, upper]`` with the smallest
+    magnitude; where none exists it is wrapped to ``[-pi, pi]`` and flagged.
+
+    Parameters
+    ----------
+    q : (..., 6) radians
+    limits : (6, 2) radians
+
+    Returns
+    -------
+    placed : (..., 6) radians
+    within : (..., 6) bool
+    excess : (..., 6) radians
+        0 inside the range, else the distance of the nearest equivalent angle to the range.
+    """
+    lo, hi = limits[:, 0], limits[:, 1]
+    two_pi = 2.0 * np.pi
+    m_lo = np.ceil((lo - q) / two_pi - 1e-12)
+    m_hi = np.floor((hi - q) / two_pi + 1e-12)
+    within = m_lo <= m_hi
+    m0 = np.clip(np.round(-q / two_pi), m_lo, m_hi)
+    inside = np.clip(q + two_pi * m0, lo, hi)  # clip only absorbs the 1e-12 slack above
+    wrapped = np.remainder(q + np.pi, two_pi) - np.pi
+    cand = wrapped[..., None] + two_pi * np.array([-1.0, 0.0, 1.0])
+    dist = np.maximum(lo[:, None] - cand, cand - hi[:, None]).min(-1)
+    placed = np.where(within, inside, wrapped)
+    excess = np.where(within, 0.0, np.maximum(dist, 0.0))
+    return placed, within, excess
+
+
+def turn_counts(q_placed: np.ndarray, limits: np.ndarray):
+    """``(..., 6)`` lowest and highest turn index m with ``q + 2 pi m`` inside the limits."""
+    lo, hi = limits[:, 0], limits[:, 1]
+    two_pi = 2.0 * np.pi
+    m_lo = np.ceil((lo - q_placed) / two_pi - 1e-12)
+    m_hi = np.floor((hi - q_placed) / two_pi + 1e-12)
+    return m_lo.astype(int), m_hi.astype(int)

@@ -1,0 +1,93 @@
+"""The report: every output file of ``envelope check``, written from a ``CheckResult``.
+
+``write_report(result, out_dir, now=None)`` writes, atomically (see ``files``), into ``out_dir``:
+
+- ``clearance.csv``: one row per target x branch (``tables.CSV_COLUMNS``);
+- ``clearance.json``: everything (tool version, cell summary, pair definitions, every row with its
+  per-pair arrays, motions);
+- ``report.html``: one self-contained page: verdict, cautions, inputs, cell, warnings, pictures, the
+  worst rows;
+- ``report.pdf``: the same as a document;
+- ``worst-<k>-<target>.glb``: 3-D scenes of the worst row of each of the (up to) ``GLB_TARGETS`` worst
+  targets.
+
+Every file is documented in docs/outputs.md. Only the HTML and PDF carry a date (``now``).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import re
+from pathlib import Path
+
+from .files import write_bytes_atomic, write_text_atomic
+
+GLB_TARGETS = 5
+"""Scenes are written for the worst row of at most this many targets (the worst)."""
+GLB_PATTERN = re.compile(r"^worst-\d+-[A-Za-z0-9_.-]*\.glb$")
+"""Names of the scene files; older ones in ``out_dir`` that a new run does not write are removed."""
+
+
+def _slug(name: str) -> str:
+    s = re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("._")
+    return s[:60] or "target"
+
+
+def now_text(now=None) -> str:
+    """The report date as ``YYYY-MM-DD HH:MM:SS UTC`` (``now``, or the current time if None)."""
+    if now is None:
+        now = _dt.datetime.now(_dt.timezone.utc)
+    if now.tzinfo is not None:
+        now = now.astimezone(_dt.timezone.utc)
+    return now.strftime("%Y-%m-%d %H:%M:%S UTC")
+
+
+def glb_rows(result, limit: int = GLB_TARGETS) -> list:
+    """Row indices that get a scene: the worst drawable row of each of the ``limit`` worst targets."""
+    from .figures import drawn_rows
+
+    return drawn_rows(result, limit)
+
+
+def write_report(result, out_dir, *, now=None) -> dict:
+    """Write every report file of ``result`` into ``out_dir`` (created if missing).
+
+    Parameters
+    ----------
+    result : CheckResult
+    out_dir : str or Path
+    now : datetime, optional
+        The report date printed in the HTML and PDF (UTC); the current time if None.
+
+    Returns
+    -------
+    dict of str -> Path
+        File name -> path of every file written: ``clearance.csv``, ``clearance.json``,
+        ``report.html``, ``report.pdf`` and each ``worst-<k>-<target>.glb``.
+    """
+    from ..scene import glb_bytes, row_scene
+    from .figures import report_figures
+    from .html import html_text
+    from .pdf import pdf_bytes
+    from .tables import write_csv, write_json
+
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    files = {}
+    files["clearance.csv"] = write_csv(result, out / "clearance.csv")
+    files["clearance.json"] = write_json(result, out / "clearance.json")
+    stamp = now_text(now)
+    figures = report_figures(result)
+    files["report.html"] = write_text_atomic(out / "report.html", html_text(result, figures, stamp))
+    files["report.pdf"] = write_bytes_atomic(out / "report.pdf", pdf_bytes(result, figures, stamp))
+    for k, i in enumerate(glb_rows(result), start=1):
+        row = result.rows[i]
+        name = f"worst-{k}-{_slug(row.target)}.glb"
+        files[name] = write_bytes_atomic(out / name, glb_bytes(row_scene(result.cell, row)))
+    for old in out.iterdir():
+        if GLB_PATTERN.match(old.name) and old.name not in files:
+            old.unlink()
+    return files
+
+
+__all__ = ["write_report", "GLB_TARGETS", "now_text", "glb_rows"]

@@ -1,0 +1,294 @@
+"""Report figures (matplotlib, Agg backend): plan view, elevations and the clearance chart.
+
+The views are orthographic projections of the cell in millimetres: zones as translucent grey
+silhouettes (red when a finding involves them, fences with a dark outline), half-spaces as a band
+along their boundary (left out of a view they would cover entirely, e.g. the floor in the plan view),
+and the arm drawn in the worst branch of each of the worst targets, coloured by that row's status.
+Every target's TCP is a dot coloured by the worst status among its rows.
+"""
+
+from __future__ import annotations
+
+import io
+
+import matplotlib
+
+matplotlib.use("Agg")  # set explicitly: reports are written without a display
+
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+from matplotlib.collections import PolyCollection  # noqa: E402
+from matplotlib.lines import Line2D  # noqa: E402
+from matplotlib.patches import Patch, Polygon  # noqa: E402
+from scipy.spatial import ConvexHull, QhullError  # noqa: E402
+
+from ..geometry import HalfSpace, TriMesh  # noqa: E402
+from ..scene import STATUS_RGBA, cell_extent, shape_mesh, world_from_frames  # noqa: E402
+from ..units import to_mm  # noqa: E402
+
+ARM_DRAW_LIMIT = 6
+"""The arm is drawn for at most this many targets (the worst), to keep the views readable."""
+DPI = 110
+AXIS_NAMES = "XYZ"
+VIEWS = {"plan": (0, 1), "elevation-xz": (0, 2), "elevation-yz": (1, 2)}
+"""View name -> (horizontal axis, vertical axis) indices of the cell frame."""
+VIEW_TITLES = {
+    "plan": "Plan view (looking down -Z)",
+    "elevation-xz": "Elevation XZ (looking along +Y)",
+    "elevation-yz": "Elevation YZ (looking along -X)",
+}
+FINDING_STATUSES = ("intrusion", "below margin")
+_SEVERITY = ("intrusion", "below margin", "outside limits", "unreachable", "allowed contact", "clear")
+
+
+def _sev(status: str) -> int:
+    """Position of a status in ``_SEVERITY`` (an unknown status sorts last)."""
+    return _SEVERITY.index(status) if status in _SEVERITY else len(_SEVERITY)
+
+
+def status_colour(status: str) -> tuple:
+    """A matplotlib RGBA (0..1) for a status."""
+    r, g, b, a = STATUS_RGBA.get(status, (0, 0, 0, 255))
+    return (r / 255, g / 255, b / 255, a / 255)
+
+
+def drawn_rows(result, limit: int = ARM_DRAW_LIMIT) -> list:
+    """Row indices to draw: the worst row with finite joint values of each target, worst targets first."""
+    seen, out = set(), []
+    for i in result.worst_first():
+        row = result.rows[i]
+        if row.target in seen or not np.isfinite(np.asarray(row.q, dtype=np.float64)).all():
+            continue
+        seen.add(row.target)
+        out.append(i)
+        if len(out) >= limit:
+            break
+    return out
+
+
+def offended_zones(result, rows=None) -> set:
+    """Names of zones a finding involves: the closest zone of every intrusion / below-margin row, and
+    every zone in an intrusion / below-margin pair of the rows ``rows`` (indices)."""
+    zone_names = {z.name for z in result.cell.zones}
+    out = {r.closest_other for r in result.rows if r.status in FINDING_STATUSES and r.closest_other in zone_names}
+    for i in rows or ():
+        for p in result.rows[i].pairs:
+            if p.kind != "self" and p.status in FINDING_STATUSES:
+                out.add(p.other)
+    return out
+
+
+def _silhouette(points_2d):
+    """The convex hull polygon (k, 2) of projected points, or None if degenerate."""
+    pts = np.unique(np.round(points_2d, 6), axis=0)
+    if len(pts) < 3:
+        return None
+    try:
+        hull = ConvexHull(pts)
+    except QhullError:
+        return None
+    return pts[hull.vertices]
+
+
+def _draw_shape(ax, shape, world_from_parent, axes, extent, padding, *, face, edge, lw, z, label=None):
+    mesh = shape_mesh(shape, extent=extent, padding=padding)
+    mesh.apply_transform(world_from_parent)
+    pts = to_mm(mesh.vertices)[:, axes]
+    if isinstance(shape, TriMesh):
+        # the triangles of a (possibly non-convex) mesh, in the face colour blended onto white and drawn
+        # opaque, so that overlapping triangles do not darken each other
+        r, g, b, a = face
+        solid = (1 - a + a * r, 1 - a + a * g, 1 - a + a * b, 1.0)
+        tris = to_mm(mesh.vertices)[mesh.faces][:, :, axes]
+        ax.add_collection(PolyCollection(tris, facecolors=[solid], edgecolors="none", antialiaseds=False, zorder=z - 0.5))
+        poly = _silhouette(pts)
+        if poly is not None:
+            ax.add_patch(Polygon(poly, closed=True, fill=False, edgecolor=edge, linewidth=lw, linestyle=":", zorder=z))
+        return
+    poly = _silhouette(pts)
+    if poly is not None:
+        ax.add_patch(Polygon(poly, closed=True, facecolor=face, edgecolor=edge, linewidth=lw, zorder=z, label=label))
+
+
+def view_figure(result, view: str = "plan", *, rows=None):
+    """One orthographic view of the cell as a matplotlib Figure (axes in mm, equal aspect).
+
+    Parameters
+    ----------
+    result : CheckResult
+    view : {"plan", "elevation-xz", "elevation-yz"}
+    rows : list of int, optional
+        Rows whose arm configuration is drawn; ``drawn_rows(result)`` by default.
+    """
+    cell = result.cell
+    axes = VIEWS[view]
+    depth_axis = 3 - axes[0] - axes[1]
+    if rows is None:
+        rows = drawn_rows(result)
+    tcp_all = np.array([np.asarray(t.world_from_tcp)[:3, 3] for t in cell.targets]).reshape(-1, 3)
+    extent = cell_extent(cell, qs=[result.rows[i].q for i in rows] if rows else None, points=tcp_all)
+    offended = offended_zones(result, rows)
+    fig, ax = plt.subplots(figsize=(7.0, 6.0), dpi=DPI)
+
+    for zone in cell.zones:
+        bad = zone.name in offended
+        alpha = 0.10 if zone.kind == "fence" else 0.30  # fences are thin panels: mostly their outline
+        face = (0.85, 0.15, 0.15, alpha) if bad else (0.55, 0.55, 0.55, alpha)
+        edge = (0.15, 0.15, 0.15, 1.0) if zone.kind == "fence" else ((0.7, 0.1, 0.1, 1.0) if bad else (0.4, 0.4, 0.4, 1.0))
+        lw = 1.6 if zone.kind == "fence" else 0.6
+        centres = []
+        for shape in zone.shapes:
+            if isinstance(shape, HalfSpace) and abs(shape.normal[depth_axis]) > 0.99:
+                continue  # the plane faces the viewer: it would cover the whole view
+            _draw_shape(ax, shape, np.eye(4), axes, extent, 0.0, face=face, edge=edge, lw=lw, z=1)
+            if not isinstance(shape, HalfSpace):
+                centres.append(to_mm(shape_mesh(shape).bounds.mean(axis=0))[list(axes)])
+        if centres and view == "plan" and len(cell.zones) <= 30:  # names only in the plan: elevations crowd
+            c = np.mean(centres, axis=0)
+            ax.annotate(zone.name, c, fontsize=7, ha="center", va="center", color=(0.2, 0.2, 0.2), zorder=5)
+
+    for i in rows:
+        row = result.rows[i]
+        world_from_frame = world_from_frames(cell, row.q)
+        colour = status_colour(row.status)
+        face = colour[:3] + (0.45,)
+        for body in cell.bodies:
+            for shape in body.shapes:
+                _draw_shape(
+                    ax, shape, world_from_frame[body.frame], axes, extent, body.padding,
+                    face=face, edge=colour[:3] + (0.9,), lw=0.5, z=3,
+                )
+        tcp = to_mm((world_from_frame[6] @ cell.tool.flange_from_tcp)[:3, 3])
+        ax.annotate(
+            f"{row.target} ({row.branch})", tcp[list(axes)], fontsize=7, xytext=(4, 4),
+            textcoords="offset points", zorder=6,
+        )
+
+    # every target's TCP, coloured by the worst status among its rows
+    worst: dict = {}
+    for row in result.rows:
+        if row.target not in worst or _sev(row.status) < _sev(worst[row.target]):
+            worst[row.target] = row.status
+    tcps, colours = [], []
+    for t in cell.targets:
+        if t.name in worst:
+            tcps.append(to_mm(np.asarray(t.world_from_tcp)[:3, 3])[list(axes)])
+            colours.append(status_colour(worst[t.name]))
+    if tcps:
+        tcps = np.array(tcps)
+        ax.scatter(tcps[:, 0], tcps[:, 1], s=14, c=colours, edgecolors="black", linewidths=0.4, zorder=7)
+
+    base = to_mm(np.asarray(cell.world_from_base)[:3, 3])[list(axes)]
+    ax.plot([base[0]], [base[1]], marker="+", color="black", markersize=10, zorder=8)
+
+    lo, hi = to_mm(extent[0])[list(axes)], to_mm(extent[1])[list(axes)]
+    ax.set_xlim(lo[0], hi[0])
+    ax.set_ylim(lo[1], hi[1])
+    ax.set_aspect("equal", adjustable="box")
+    ax.set_xlabel(f"{AXIS_NAMES[axes[0]]} (mm, cell frame)")
+    ax.set_ylabel(f"{AXIS_NAMES[axes[1]]} (mm, cell frame)")
+    ax.set_title(VIEW_TITLES[view], fontsize=10)
+    ax.grid(True, linewidth=0.3, alpha=0.5)
+
+    statuses = sorted({result.rows[i].status for i in rows} | set(worst.values()), key=_sev)
+    handles = [Patch(facecolor=(0.55, 0.55, 0.55, 0.3), edgecolor=(0.4, 0.4, 0.4), label="zone")]
+    if offended:
+        handles.append(Patch(facecolor=(0.85, 0.15, 0.15, 0.3), edgecolor=(0.7, 0.1, 0.1), label="zone with a finding"))
+    if any(z.kind == "fence" for z in cell.zones):
+        handles.append(Patch(facecolor=(0.55, 0.55, 0.55, 0.3), edgecolor=(0.15, 0.15, 0.15), linewidth=1.6, label="fence"))
+    handles += [Patch(facecolor=status_colour(s)[:3] + (0.45,), edgecolor=status_colour(s), label=f"arm / TCP: {s}") for s in statuses]
+    handles.append(Line2D([], [], marker="+", color="black", linestyle="none", markersize=9, label="arm base"))
+    ax.legend(handles=handles, fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
+    fig.tight_layout()
+    return fig
+
+
+def clearance_chart(result):
+    """Clearance (mm) of every target x branch row against its required clearance, as a Figure.
+
+    One column per target (in check order), its branches side by side in it; a marker per branch
+    coloured by status; the required clearance of the branch's closest pair as a black bar above it; an unreachable target as a cross on the zero line.
+    """
+    targets: list = []
+    index: dict = {}
+    for row in result.rows:
+        if row.target not in index:
+            index[row.target] = len(targets)
+            targets.append(row.target)
+    n = len(targets)
+    fig, ax = plt.subplots(figsize=(max(7.0, min(14.0, 0.35 * n + 3.0)), 4.2), dpi=DPI)
+    per_target: dict = {}
+    for row in result.rows:
+        per_target[row.target] = per_target.get(row.target, 0) + 1
+    slot: dict = {}
+    by_status: dict = {}
+    req_segments = []
+    unreachable = []
+    for row in result.rows:
+        k = slot.get(row.target, 0)
+        slot[row.target] = k + 1
+        width = 0.8 / per_target[row.target]
+        x = index[row.target] - 0.4 + (k + 0.5) * width  # branches side by side within the target's column
+        c = float(to_mm(row.clearance))
+        r = float(to_mm(row.required))
+        if np.isfinite(r):
+            req_segments.append(((x - 0.4 * width, r), (x + 0.4 * width, r)))
+        if not np.isfinite(c):
+            if row.status == "unreachable":
+                unreachable.append(x)
+            continue
+        by_status.setdefault(row.status, ([], []))
+        by_status[row.status][0].append(x)
+        by_status[row.status][1].append(c)
+    size = 22 if len(result.rows) < 2000 else 6
+    for status in sorted(by_status, key=_sev):
+        xs, ys = by_status[status]
+        ax.scatter(xs, ys, s=size, color=status_colour(status), edgecolors="black", linewidths=0.3, label=status, zorder=3)
+    if req_segments:
+        from matplotlib.collections import LineCollection
+
+        ax.add_collection(LineCollection(req_segments, colors="black", linewidths=1.2, zorder=2))
+        ax.plot([], [], color="black", linewidth=1.2, label="required clearance")
+    if unreachable:
+        ax.scatter(unreachable, [0.0] * len(unreachable), marker="x", s=30, color=status_colour("unreachable"), label="unreachable (no branch)", zorder=3)
+    ax.axhline(0.0, color=(0.3, 0.3, 0.3), linewidth=0.6)
+    ax.set_xlim(-0.7, max(n, 1) - 0.3)
+    if n <= 40:
+        ax.set_xticks(range(n))
+        ax.set_xticklabels(targets, rotation=60, ha="right", fontsize=7)
+        ax.set_xlabel("target")
+    else:
+        ax.set_xlabel("target (index in check order; names in clearance.csv)")
+    ax.set_ylabel("clearance (mm)")
+    ax.set_title("Clearance per target and branch against the required clearance", fontsize=10)
+    ax.grid(True, axis="y", linewidth=0.3, alpha=0.5)
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
+    fig.tight_layout()
+    return fig
+
+
+def png_bytes(fig) -> bytes:
+    """The figure as PNG bytes (no software / date metadata, so re-runs give the same bytes); closes it."""
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None}, bbox_inches="tight", pad_inches=0.1)
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def report_figures(result) -> dict:
+    """``{name: PNG bytes}``: ``plan``, ``elevation-xz``, ``elevation-yz`` and ``chart``."""
+    rows = drawn_rows(result)
+    out = {view: png_bytes(view_figure(result, view, rows=rows)) for view in VIEWS}
+    out["chart"] = png_bytes(clearance_chart(result))
+    return out
+
+
+FIGURE_CAPTIONS = {
+    "plan": "Plan view of the cell (mm). Grey: zones; red: zones with a finding; dark outline: fences. "
+    "The arm is drawn in the worst branch of each of the worst targets, coloured by that row's status; "
+    "dots are the target TCPs, coloured by the worst status among their rows; + is the arm base.",
+    "elevation-xz": "Elevation of the cell in the XZ plane (mm), same colours as the plan view.",
+    "elevation-yz": "Elevation of the cell in the YZ plane (mm), same colours as the plan view.",
+    "chart": "Clearance of each target x branch row (markers, coloured by status) against the required "
+    "clearance of its closest pair (black bars). Negative clearance is a penetration.",
+}

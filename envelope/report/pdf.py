@@ -1,0 +1,161 @@
+"""report.pdf: the report as a document (reportlab platypus), reproducible apart from the date.
+
+The document is built with reportlab's ``invariant`` mode (fixed document id and internal dates), with
+fixed title, author, subject, creator and producer; the only date is the report date printed in the
+inputs table, taken from ``now``.
+"""
+
+from __future__ import annotations
+
+import io
+from xml.sax.saxutils import escape
+
+from reportlab.lib import colors
+from reportlab.lib.pagesizes import A4, landscape
+from reportlab.lib.styles import getSampleStyleSheet
+from reportlab.lib.units import mm
+from reportlab.platypus import Image, PageBreak, Paragraph, SimpleDocTemplate, Spacer, Table, TableStyle
+
+from .figures import FIGURE_CAPTIONS
+from .html import HTML_ROW_LIMIT, STATUS_CSS, clearance_table_rows, inputs_rows
+from .summary import all_warnings, cautions, cell_summary, fmt, status_counts, target_count, tool_version, verdict_text
+
+PDF_TITLE = "envelope clearance report"
+PDF_AUTHOR = "envelope"
+
+
+def _p(text, style):
+    return Paragraph(escape(str(text)), style)
+
+
+def _grid(data, col_widths=None, header=True, font_size=7.5):
+    t = Table(data, colWidths=col_widths, repeatRows=1 if header else 0)
+    style = [
+        ("GRID", (0, 0), (-1, -1), 0.3, colors.grey),
+        ("FONTSIZE", (0, 0), (-1, -1), font_size),
+        ("VALIGN", (0, 0), (-1, -1), "TOP"),
+        ("LEFTPADDING", (0, 0), (-1, -1), 2),
+        ("RIGHTPADDING", (0, 0), (-1, -1), 2),
+        ("TOPPADDING", (0, 0), (-1, -1), 1),
+        ("BOTTOMPADDING", (0, 0), (-1, -1), 1),
+    ]
+    if header:
+        style += [("BACKGROUND", (0, 0), (-1, 0), colors.HexColor("#eeeeee")), ("FONTNAME", (0, 0), (-1, 0), "Helvetica-Bold")]
+    t.setStyle(TableStyle(style))
+    return t
+
+
+def _image(png: bytes, max_width: float, max_height: float):
+    from reportlab.lib.utils import ImageReader
+
+    w, h = ImageReader(io.BytesIO(png)).getSize()
+    scale = min(max_width / w, max_height / h)
+    return Image(io.BytesIO(png), width=w * scale, height=h * scale)
+
+
+def pdf_bytes(result, figures: dict, now_text: str) -> bytes:
+    """The whole report.pdf as bytes (A4 landscape)."""
+    buf = io.BytesIO()
+    page = landscape(A4)
+    doc = SimpleDocTemplate(
+        buf,
+        pagesize=page,
+        leftMargin=14 * mm,
+        rightMargin=14 * mm,
+        topMargin=12 * mm,
+        bottomMargin=12 * mm,
+        title=PDF_TITLE,
+        author=PDF_AUTHOR,
+        subject=f"clearance check of cell {result.cell.name}",
+        creator=f"envelope {tool_version()}",
+        producer=f"envelope {tool_version()}",
+        invariant=1,
+    )
+    width = page[0] - 28 * mm
+    height = page[1] - 24 * mm
+    ss = getSampleStyleSheet()
+    body, small, h1, h2 = ss["BodyText"], ss["BodyText"].clone("small", fontSize=7.5, leading=9), ss["Title"], ss["Heading2"]
+    summary = cell_summary(result.cell)
+    verdict = result.verdict
+    story = [_p(f"Clearance check: {summary['name']}", h1)]
+
+    vt = Table([[_p(f"Verdict: {verdict_text(result)}", ss["Heading3"].clone("v", textColor=colors.white))]], colWidths=[width])
+    vt.setStyle(TableStyle([("BACKGROUND", (0, 0), (-1, -1), colors.HexColor(STATUS_CSS.get(verdict, "#000000")))]))
+    story += [vt, Spacer(1, 4 * mm)]
+
+    caution = [[_p("CAUTION", ss["Heading4"])]] + [[_p(c, small)] for c in cautions()]
+    ct = Table(caution, colWidths=[width])
+    ct.setStyle(TableStyle([("BOX", (0, 0), (-1, -1), 1.2, colors.HexColor("#b58900")), ("BACKGROUND", (0, 0), (-1, -1), colors.HexColor("#fff8e1"))]))
+    story += [ct, Spacer(1, 3 * mm)]
+    counts = status_counts(result)
+    story.append(_p(f"{len(result.rows)} target x branch rows for {target_count(result)} targets: " + ", ".join(f"{n} {s}" for s, n in counts.items()) + ".", body))
+
+    story.append(_p("Inputs", h2))
+    story.append(_grid([["item", "value"]] + [[a, _p(b, small)] for a, b in inputs_rows(result, now_text)], col_widths=[35 * mm, width - 35 * mm]))
+
+    story.append(_p("Cell", h2))
+    m, t = summary["mount"], summary["tool"]["flange_from_tcp"]
+    story.append(
+        _p(
+            f"Arm {summary['arm']['name']}, DH convention {summary['arm']['convention']}; mount (cell from base) "
+            f"xyz {m['xyz_mm']} mm, rpy {m['rpy_deg']} deg ({m['rpy_convention']}); TCP (flange from TCP) xyz "
+            f"{t['xyz_mm']} mm, rpy {t['rpy_deg']} deg. Self clearance {fmt(summary['self_clearance_mm'], 1)} mm; "
+            f"stopping allowance {fmt(summary['stopping_allowance_mm'], 1)} mm.",
+            body,
+        )
+    )
+    keys = ("joint", "a_mm", "alpha_deg", "d_mm", "offset_deg", "lower_deg", "upper_deg")
+    dh = [["joint", "a mm", "alpha deg", "d mm", "offset deg", "lower deg", "upper deg"]]
+    dh += [[str(j["joint"])] + [fmt(j[k], 3) for k in keys[1:]] for j in summary["arm"]["dh"]]
+    story += [_grid(dh), Spacer(1, 2 * mm)]
+    zones = [["zone", "kind", "required mm", "panels", "shapes", "allowed contact"]]
+    zones += [
+        [_p(z["name"], small), z["kind"], fmt(z["clearance_mm"], 1), _p(", ".join(z["panels"]), small), _p(", ".join(z["shapes"]), small), _p(", ".join(z["allowed"]), small)]
+        for z in summary["zones"]
+    ]
+    story += [_grid(zones, col_widths=[50 * mm, 22 * mm, 22 * mm, 60 * mm, 50 * mm, width - 204 * mm]), Spacer(1, 2 * mm)]
+    bodies = [["body", "role", "frame", "padding mm", "shapes"]]
+    bodies += [[b["name"], b["role"], str(b["frame"]), fmt(b["padding_mm"], 1), ", ".join(b["shapes"])] for b in summary["bodies"]]
+    story.append(_grid(bodies))
+
+    story.append(_p("Warnings", h2))
+    warnings = all_warnings(result)
+    story += [_p(f"- {w}", small) for w in warnings] or [_p("None.", body)]
+
+    for name, png in figures.items():
+        story.append(PageBreak())
+        story.append(_image(png, width, height - 20 * mm))
+        story.append(_p(FIGURE_CAPTIONS.get(name, name), small))
+
+    story.append(PageBreak())
+    story.append(_p("Clearance table (worst first)", h2))
+    header, rows, shown, total = clearance_table_rows(result, HTML_ROW_LIMIT)
+    if shown < total:
+        story.append(_p(f"The {shown} worst of {total} rows; every row is in clearance.csv and clearance.json.", small))
+    keep = (0, 1, 2, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13)  # the note column is left to the CSV
+    data = [[header[k] for k in keep]] + [[_p(r[k], small) if k in (1, 9, 10, 13) else r[k] for k in keep] for r in rows]
+    widths = [10 * mm, 32 * mm, 20 * mm, 20 * mm, 20 * mm, 17 * mm, 17 * mm, 15 * mm, 22 * mm, 28 * mm, 15 * mm, 13 * mm]
+    widths.append(width - sum(widths))
+    table = _grid(data, col_widths=widths, font_size=6.5)
+    styles = []
+    for k, r in enumerate(rows, start=1):
+        styles.append(("TEXTCOLOR", (3, k), (3, k), colors.HexColor(STATUS_CSS.get(r[4], "#000000"))))
+    if styles:
+        table.setStyle(TableStyle(styles))
+    story.append(table)
+    story.append(_p("Clearance: the certified lower bound of the closest pair (negative: penetration). Margin = clearance - required. Lengths in mm, angles in degrees.", small))
+
+    if result.motions:
+        story.append(_p("Motions", h2))
+        from .tables import _jsonable
+
+        for mo in result.motions:
+            rec = _jsonable(mo)
+            if isinstance(rec, dict):
+                text = "; ".join(f"{k}: {v}" for k, v in rec.items() if not isinstance(v, (list, dict)))
+            else:
+                text = str(rec)
+            story.append(_p(text, small))
+
+    doc.build(story)
+    return buf.getvalue()

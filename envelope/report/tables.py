@@ -1,0 +1,289 @@
+"""The clearance table (``clearance.csv``) and the full record (``clearance.json``).
+
+Both are documented column by column in docs/outputs.md. Neither holds a timestamp; numbers are
+rounded to ``summary.DECIMALS`` decimals and keys are sorted, so a re-run writes identical bytes.
+"""
+
+from __future__ import annotations
+
+import csv
+import dataclasses
+import io
+import json
+
+import numpy as np
+
+from ..units import to_degrees, to_mm
+from .files import AtomicWriter, write_text_atomic
+from .summary import (
+    all_warnings,
+    cell_summary,
+    fmt,
+    rnd,
+    rnd_list,
+    singular_names,
+    status_counts,
+    target_count,
+    tool_version,
+    worst_limit,
+)
+
+CSV_COLUMNS = (
+    "row",
+    "rank",
+    "target",
+    "frame",
+    "branch",
+    "turn",
+    "twin_of",
+    "status",
+    "clearance_status",
+    "q1_deg",
+    "q2_deg",
+    "q3_deg",
+    "q4_deg",
+    "q5_deg",
+    "q6_deg",
+    "limit_joint",
+    "limit_excess_deg",
+    "singular",
+    "clearance_mm",
+    "required_mm",
+    "margin_mm",
+    "closest_body",
+    "closest_other",
+    "body_x_mm",
+    "body_y_mm",
+    "body_z_mm",
+    "other_x_mm",
+    "other_y_mm",
+    "other_z_mm",
+    "note",
+)
+"""The columns of clearance.csv, in order (stable; new columns are only ever appended)."""
+
+JSON_FORMAT = "envelope-clearance"
+JSON_FORMAT_VERSION = 1
+PAIR_STATUS_CODES = ("clear", "below margin", "intrusion", "allowed contact")
+"""Per-pair ``status`` codes in clearance.json: index into this list (a status not listed is appended
+to ``pair_status_codes`` in the file itself, which is the authority)."""
+
+
+def ranks(result) -> list:
+    """``rank[i]``: the 1-based position of row i in ``result.worst_first()``."""
+    out = [0] * len(result.rows)
+    for pos, i in enumerate(result.worst_first()):
+        out[i] = pos + 1
+    return out
+
+
+def csv_text(result) -> str:
+    """clearance.csv as text: one row per target x branch, in ``result.rows`` order."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(CSV_COLUMNS)
+    rank = ranks(result)
+    for i, row in enumerate(result.rows):
+        q_deg = to_degrees(row.q)
+        joint, excess = worst_limit(row)
+        wb = to_mm(row.witness_body)
+        wo = to_mm(row.witness_other)
+        w.writerow(
+            [
+                i,
+                rank[i],
+                row.target,
+                row.target_frame,
+                row.branch,
+                row.turn,
+                row.twin_of,
+                row.status,
+                row.clearance_status,
+                *(fmt(v) for v in q_deg),
+                joint or "",
+                fmt(excess) if joint else "",
+                ";".join(singular_names(row)),
+                fmt(to_mm(row.clearance)),
+                fmt(to_mm(row.required)),
+                fmt(to_mm(row.margin)),
+                row.closest_body,
+                row.closest_other,
+                *(fmt(v) for v in wb),
+                *(fmt(v) for v in wo),
+                row.note,
+            ]
+        )
+    return buf.getvalue()
+
+
+def write_csv(result, path):
+    return write_text_atomic(path, csv_text(result))
+
+
+# ---------------------------------------------------------------------- JSON
+
+
+def _pair_key(p) -> tuple:
+    return (p.body, p.other, p.kind, p.zone_kind, p.panel, float(p.required))
+
+
+def pair_definitions(result) -> tuple:
+    """``(definitions, index)``: every distinct pair (in first-seen order) and ``{key: position}``."""
+    defs, index = [], {}
+    for row in result.rows:
+        for p in row.pairs:
+            key = _pair_key(p)
+            if key not in index:
+                index[key] = len(defs)
+                defs.append(
+                    {
+                        "body": p.body,
+                        "other": p.other,
+                        "kind": p.kind,
+                        "zone_kind": p.zone_kind,
+                        "panel": p.panel,
+                        "required_mm": rnd(to_mm(p.required)),
+                    }
+                )
+    return defs, index
+
+
+WITNESSES = ("findings", "all")
+"""Which pairs' witness points clearance.json holds: ``findings`` (every pair that is not ``clear``,
+the default, keeping big checks compact) or ``all`` (every pair that was not pruned)."""
+
+
+def _row_pairs(row, index: dict, status_codes: list, n_defs: int, witnesses: str) -> dict:
+    pairs = row.pairs
+    codes = []
+    for p in pairs:
+        if p.status not in status_codes:
+            status_codes.append(p.status)
+        codes.append(status_codes.index(p.status))
+    where = [index[_pair_key(p)] for p in pairs]
+    # null: the row holds every defined pair, in definition order (the usual case: saves an array)
+    pair = None if len(where) == n_defs and where == list(range(n_defs)) else where
+    if witnesses == "all":
+        keep = [k for k, p in enumerate(pairs) if not p.pruned]
+    else:
+        keep = [k for k, p in enumerate(pairs) if p.status != "clear" and not p.pruned]
+    wb = np.array([pairs[k].witness_body for k in keep], dtype=np.float64).reshape(-1, 3)
+    wo = np.array([pairs[k].witness_other for k in keep], dtype=np.float64).reshape(-1, 3)
+    return {
+        "pair": pair,
+        "distance_mm": rnd_list(to_mm(np.array([p.distance for p in pairs], dtype=np.float64))),
+        "distance_upper_mm": rnd_list(to_mm(np.array([p.distance_upper for p in pairs], dtype=np.float64))),
+        "depth_known": [1 if p.depth_known else 0 for p in pairs],
+        "pruned": [1 if p.pruned else 0 for p in pairs],
+        "status": codes,
+        "witness": keep,
+        "witness_body_mm": rnd_list(to_mm(wb)),
+        "witness_other_mm": rnd_list(to_mm(wo)),
+    }
+
+
+def row_record(i: int, row, rank: int, index: dict, status_codes: list, n_defs: int, witnesses: str = "findings") -> dict:
+    """One row of clearance.json (see docs/outputs.md)."""
+    joint, excess = worst_limit(row)
+    rec = {
+        "row": i,
+        "rank": rank,
+        "target": row.target,
+        "frame": row.target_frame,
+        "branch": row.branch,
+        "turn": int(row.turn),
+        "twin_of": int(row.twin_of),
+        "status": row.status,
+        "clearance_status": row.clearance_status,
+        "q_deg": rnd_list(to_degrees(row.q)),
+        "limit_excess_deg": rnd_list(to_degrees(row.limit_excess)),
+        "limit_joint": joint,
+        "singular": singular_names(row),
+        "clearance_mm": rnd(to_mm(row.clearance)),
+        "required_mm": rnd(to_mm(row.required)),
+        "margin_mm": rnd(to_mm(row.margin)),
+        "closest_body": row.closest_body,
+        "closest_other": row.closest_other,
+        "witness_body_mm": rnd_list(to_mm(row.witness_body)),
+        "witness_other_mm": rnd_list(to_mm(row.witness_other)),
+        "note": row.note,
+    }
+    rec["pairs"] = _row_pairs(row, index, status_codes, n_defs, witnesses)
+    return rec
+
+
+def _jsonable(value):
+    """A motion (or any dataclass / array / scalar) as plain JSON values, floats rounded."""
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: _jsonable(getattr(value, f.name)) for f in dataclasses.fields(value)}
+    if isinstance(value, dict):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, np.ndarray):
+        if value.dtype.kind in "fc":
+            return rnd_list(value, 6)
+        return value.tolist()
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return rnd(value, 6)
+    if value is None or isinstance(value, str):
+        return value
+    return str(value)
+
+
+_ROWS_SENTINEL = "@@ROWS@@"
+
+
+def write_json(result, path, *, witnesses: str = "findings"):
+    """Write clearance.json: a pretty header, then one row per line; atomic.
+
+    ``witnesses``: one of ``WITNESSES``.
+    """
+    if witnesses not in WITNESSES:
+        raise ValueError(f"witnesses must be one of {WITNESSES}, got {witnesses!r}")
+    defs, index = pair_definitions(result)
+    status_codes = list(PAIR_STATUS_CODES)
+    rank = ranks(result)
+    head = {
+        "format": JSON_FORMAT,
+        "format_version": JSON_FORMAT_VERSION,
+        "tool": {"name": "envelope", "version": tool_version()},
+        "units": {"length": "mm", "angle": "deg"},
+        "verdict": result.verdict,
+        "exit_code": int(result.exit_code),
+        "findings": len(result.findings()),
+        "counts": status_counts(result),
+        "row_count": len(result.rows),
+        "target_count": target_count(result),
+        "cell": cell_summary(result.cell),
+        "warnings": all_warnings(result),
+        "pairs": defs,
+        "witnesses": witnesses,
+        "motions": [_jsonable(m) for m in result.motions],
+        "rows": _ROWS_SENTINEL,
+    }
+    # row records are built first so that every pair status code is known when the header is written
+    lines = [
+        json.dumps(row_record(i, row, rank[i], index, status_codes, len(defs), witnesses), sort_keys=True, separators=(",", ":"), allow_nan=False)
+        for i, row in enumerate(result.rows)
+    ]
+    head["pair_status_codes"] = status_codes
+    text = json.dumps(head, sort_keys=True, indent=1, allow_nan=False)
+    before, after = text.split(json.dumps(_ROWS_SENTINEL), 1)
+    with AtomicWriter(path) as out:
+        out.write(before)
+        if lines:
+            out.write("[\n")
+            for k, line in enumerate(lines):
+                out.write(line)
+                out.write(",\n" if k + 1 < len(lines) else "\n")
+            out.write("]")
+        else:
+            out.write("[]")
+        out.write(after)
+        out.write("\n")
+    return path
