@@ -342,7 +342,9 @@ def _resolve_frames(r: Reader, table: dict, mount: np.ndarray, mount_parent: str
         if parent not in known:
             raise r.error(f"unknown parent frame {parent!r}{_suggest(parent, known)}", item)
 
-    out = {"world": np.eye(4)}
+    world = np.eye(4)
+    world.flags.writeable = False
+    out = {"world": world}
 
     def resolve(name, chain):
         if name in out:
@@ -381,6 +383,7 @@ def _read_tool(r: Reader, t):
     tcp = r.table(t, "tcp", "[tool.tcp]", required=True)
     r.check_keys(tcp, POSE_KEYS, "[tool.tcp]")
     flange_from_tcp = r.pose(tcp, "[tool.tcp]", "TCP pose")
+    flange_from_tcp.flags.writeable = False
     padding = float(r.length(r.number(t, "padding", item, required=False, default=0.0, sign=">=0")))
     parts = read_shapes(r, t, item, TOOL_KEYS, for_zone=False)
     bodies = []

@@ -189,12 +189,14 @@ class PairRows(Sequence):
         )
 
 
-def _joint_note(excess) -> str:
-    parts = [
-        f"joint {j + 1} {'above' if e > 0 else 'below'} its range by {abs(np.degrees(e)):.3f} deg"
-        for j, e in enumerate(excess)
-        if e != 0
-    ]
+def _joint_note(q, limits) -> str:
+    """'joint 4 above its range by 12.300 deg; ...' for the joints of ``q`` outside ``limits``."""
+    parts = []
+    for j, (v, (lo, hi)) in enumerate(zip(q, limits)):
+        if v > hi:
+            parts.append(f"joint {j + 1} above its range by {np.degrees(v - hi):.3f} deg")
+        elif v < lo:
+            parts.append(f"joint {j + 1} below its range by {np.degrees(lo - v):.3f} deg")
     return "; ".join(parts)
 
 
@@ -205,9 +207,15 @@ def _singular_flags(sol, k) -> tuple:
 
 
 def _evaluate(cell, q, *, jobs, progress, prune, chunk=256):
-    """Clearance of configurations ``q (n, 6)``, in chunks, in this process or ``jobs`` workers."""
+    """Clearance of configurations ``q (n, 6)``, in chunks, in this process or ``jobs`` workers.
+
+    Every configuration is evaluated on its own, so the split into chunks and processes does not
+    change any value.
+    """
     from .clearance import ClearanceResult, engine_for, evaluate_in_worker, init_worker
 
+    if jobs > 1:
+        chunk = max(1, min(chunk, -(-len(q) // (4 * jobs))))
     chunks = [q[i:i + chunk] for i in range(0, len(q), chunk)]
     parts = []
     report = progress or (lambda done, total: None)
@@ -319,7 +327,7 @@ def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True) -
             within = bool(sol.within_limits[k].all())
             status = clearance_status if within else OUTSIDE_LIMITS
             if not within:
-                notes.append(_joint_note(sol.excess[k]))
+                notes.append(_joint_note(sol.q[k], cell.arm.limits))
             singular = _singular_flags(sol, k)
             if "wrist" in singular:
                 notes.append("wrist singular: only q4 + q6 is fixed, one representative shown")
@@ -366,7 +374,7 @@ def solve_pose(cell: Cell, xyz_mm, angles_deg, *, frame: str = "world", conventi
     for k in range(len(sol)):
         notes = []
         if not sol.within_limits[k].all():
-            notes.append(_joint_note(sol.excess[k]))
+            notes.append(_joint_note(sol.q[k], cell.arm.limits))
         singular = _singular_flags(sol, k)
         if singular:
             notes.append("singular: " + ", ".join(singular))

@@ -348,6 +348,10 @@ def _unit(v, fallback):
     return np.where(n > 1e-300, v / np.where(n > 1e-300, n, 1.0), fallback)
 
 
+def _PROJECTABLE(shape):
+    return isinstance(shape, (g.Sphere, g.Capsule, g.Box, g.Cylinder))
+
+
 def _dot(a, b):
     """``a . b`` over the last axis of length 3 (faster than a reduction over a short axis)."""
     return a[..., 0] * b[..., 0] + a[..., 1] * b[..., 1] + a[..., 2] * b[..., 2]
@@ -735,9 +739,14 @@ class ClearanceEngine:
             T = np.eye(4)
             T[:3, :3] = R[i, s]
             T[:3, 3] = t[i, s]
-            slot.obj.setTransform(_transform(T @ slot.frame_from_obj))
-            cache[s] = True
+            T = T @ slot.frame_from_obj
+            slot.obj.setTransform(_transform(T))
+            cache[s] = T
         return slot.obj
+
+    def _world_from_obj(self, s, cache):
+        slot = self._slots[s]
+        return slot.frame_from_obj if slot.body < 0 else cache[s]
 
     def _h(self, s, i, R, t, U):
         """Exact world support of slot ``s`` in configuration ``i`` along directions ``U (k, 3)``."""
@@ -765,6 +774,20 @@ class ClearanceEngine:
             p0, p1 = (np.asarray(x, dtype=np.float64) for x in res.nearest_points)
             v = p1 - p0
             nv = float(np.sqrt(v @ v))
+            if abs(nv - abs(d_fcl)) > 1e-6 * max(1.0, abs(d_fcl)):
+                # python-fcl sometimes returns a witness in its object's local frame (seen for
+                # mesh-sphere pairs): take the reading whose separation matches the distance
+                Ma, Mb = self._world_from_obj(sa, cache), self._world_from_obj(sb, cache)
+                cand = []
+                for x, y in ((p0, p1), (p1, p0)):
+                    for xa in (x, Ma[:3, :3] @ x + Ma[:3, 3]):
+                        for yb in (y, Mb[:3, :3] @ y + Mb[:3, 3]):
+                            cand.append((xa, yb))
+                C = np.array(cand)
+                err = np.abs(np.sqrt(_dot(C[:, 1] - C[:, 0], C[:, 1] - C[:, 0])) - abs(d_fcl))
+                p0, p1 = C[int(np.argmin(err))]
+                v = p1 - p0
+                nv = float(np.sqrt(v @ v))
             # directions: witness (both signs: python-fcl's point order is not reliable for meshes)
             U = np.array([v / nv, -v / nv]) if nv > 1e-12 else np.zeros((0, 3))
             # which witness is on the body: the one attaining the body's support along the direction
@@ -795,6 +818,18 @@ class ClearanceEngine:
             else:
                 if U.size:
                     lb = max(lb, float((-self._h(sb, i, R, t, -U) - self._h(sa, i, R, t, U)).max()))
+                if d_fcl > 0 and nv - lb > 1e-8 and _PROJECTABLE(self._slots[sa].shape) and _PROJECTABLE(slot_b.shape):
+                    # python-fcl's witness direction is a little off: refine it by alternating projections
+                    # (converge to the closest pair of two convex sets); any direction gives a valid bound
+                    x = pb
+                    for _ in range(6):
+                        ya = self._project(sa, i, R, t, x[None])[0]
+                        x = self._project(sb, i, R, t, ya[None])[0]
+                    w = x - ya
+                    nw = float(np.sqrt(w @ w))
+                    if nw > 1e-12:
+                        Uw = (w / nw)[None]
+                        lb = max(lb, float((-self._h(sb, i, R, t, -Uw) - self._h(sa, i, R, t, Uw))[0]))
                 if slot_b.body < 0 and cheap_sp[i, mm] <= 0.0:
                     # analytic inside test: a point of the body inside the zone, a point of the zone in the body
                     pt = R[i, sa] @ self._slots[sa].interior + t[i, sa]
@@ -818,8 +853,21 @@ class ClearanceEngine:
         wb[i, p] = best_wb
         wo[i, p] = best_wo
 
+    def _project(self, s, i, R, t, pts):
+        """Closest points of slot ``s`` (world) to world points ``(k, 3)`` in configuration ``i``."""
+        slot = self._slots[s]
+        if slot.body < 0:
+            return g.closest_point(slot.shape, pts)
+        Rs, ts = R[i, s], t[i, s]
+        return g.closest_point(slot.shape, (pts - ts) @ Rs) @ Rs.T + ts
+
     def _mesh_bound(self, sa, i, R, t, slot_b, U):
-        """Lower bound on the distance from convex slot ``sa`` to the triangles of a zone mesh."""
+        """Lower bound on the distance from convex slot ``sa`` to the triangles of a zone mesh.
+
+        Each triangle is convex: its bound is the best support gap over its normal (both signs), the
+        witness directions ``U``, the direction to it from the body centre and a direction refined by
+        alternating projections between the body and the triangle; the mesh bound is the minimum.
+        """
         tris, nrm = slot_b.tris, slot_b.tri_normals
         Ra, ta = R[i, sa], t[i, sa]
         slot_a = self._slots[sa]
@@ -827,6 +875,14 @@ class ClearanceEngine:
         cen = tris.mean(axis=1)
         dc = _unit(cen - ca, np.array([0.0, 0.0, 1.0]))
         dirs = [nrm, -nrm, dc]
+        q = g.closest_on_triangles(tris, ca)
+        if _PROJECTABLE(slot_a.shape):
+            for _ in range(3):
+                c = self._project(sa, i, R, t, q)
+                q = g.closest_on_triangles(tris, c)
+            dirs.append(_unit(q - c, dc))
+        else:
+            dirs.append(_unit(q - ca, dc))
         for u in U:
             dirs.append(np.broadcast_to(u, nrm.shape))
         D = np.stack(dirs, axis=1)  # (T, k, 3)

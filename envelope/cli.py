@@ -119,7 +119,8 @@ def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool):
         click.echo(json.dumps(_json_summary(result, files), indent=2, sort_keys=True))
     else:
         click.echo(_summary_line(result))
-        for row_index in result.worst_first()[:10]:
+        worst = [i for i in result.worst_first() if result.rows[i].twin_of < 0]
+        for row_index in worst[:10]:
             row = result.rows[row_index]
             if row.status == "clear":
                 break

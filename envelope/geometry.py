@@ -391,3 +391,83 @@ def contains_points(shape, points, tol: float = 0.0) -> np.ndarray:
     else:
         raise TypeError(f"not a shape: {type(shape).__name__}")
     return bool(inside[0]) if single else inside
+
+
+def closest_point(shape, points) -> np.ndarray:
+    """The point of the solid nearest to each point, ``(k, 3)`` (a point inside is its own answer).
+
+    Defined for spheres, capsules, boxes, cylinders and half-spaces (``TypeError`` otherwise).
+    """
+    p, single = _promote(points)
+    if isinstance(shape, Sphere):
+        d = p - shape.center
+        n = np.sqrt((d * d).sum(axis=1))
+        scale = np.where(n > shape.radius, shape.radius / np.where(n > 0, n, 1.0), 1.0)
+        out = shape.center + d * scale[:, None]
+    elif isinstance(shape, Capsule):
+        c = closest_on_segment(shape.p0, shape.p1, p)
+        d = p - c
+        n = np.sqrt((d * d).sum(axis=1))
+        scale = np.where(n > shape.radius, shape.radius / np.where(n > 0, n, 1.0), 1.0)
+        out = c + d * scale[:, None]
+    elif isinstance(shape, Box):
+        R, t = shape.pose[:3, :3], shape.pose[:3, 3]
+        h = 0.5 * shape.extents
+        out = np.clip((p - t) @ R, -h, h) @ R.T + t
+    elif isinstance(shape, Cylinder):
+        R, t = shape.pose[:3, :3], shape.pose[:3, 3]
+        local = (p - t) @ R
+        z = np.clip(local[:, 2], -0.5 * shape.length, 0.5 * shape.length)
+        rad = np.hypot(local[:, 0], local[:, 1])
+        scale = np.where(rad > shape.radius, shape.radius / np.where(rad > 0, rad, 1.0), 1.0)
+        out = np.column_stack([local[:, 0] * scale, local[:, 1] * scale, z]) @ R.T + t
+    elif isinstance(shape, HalfSpace):
+        s = p @ shape.normal - shape.offset
+        out = p - np.maximum(s, 0.0)[:, None] * shape.normal
+    else:
+        raise TypeError(f"no closest point for {type(shape).__name__}")
+    return out[0] if single else out
+
+
+def closest_on_segment(p0, p1, points) -> np.ndarray:
+    """``(k, 3)`` nearest points of the segment p0-p1 to ``points (k, 3)``."""
+    d = np.asarray(p1) - np.asarray(p0)
+    dd = float(d @ d)
+    t = np.zeros(len(points)) if dd == 0 else np.clip((points - p0) @ d / dd, 0.0, 1.0)
+    return p0 + t[:, None] * d
+
+
+def closest_on_triangles(tris, points) -> np.ndarray:
+    """Nearest points of triangles ``tris (T, 3, 3)`` to points ``(T, 3)`` (one point per triangle).
+
+    The Voronoi-region method of Ericson, "Real-Time Collision Detection" (2005), sec. 5.1.5, vectorised.
+    """
+    a, b, c = tris[:, 0], tris[:, 1], tris[:, 2]
+    p = np.broadcast_to(points, a.shape)
+    ab, ac, ap = b - a, c - a, p - a
+    d1, d2 = (ab * ap).sum(1), (ac * ap).sum(1)
+    bp = p - b
+    d3, d4 = (ab * bp).sum(1), (ac * bp).sum(1)
+    cp = p - c
+    d5, d6 = (ab * cp).sum(1), (ac * cp).sum(1)
+    va = d3 * d6 - d5 * d4
+    vb = d5 * d2 - d1 * d6
+    vc = d1 * d4 - d3 * d2
+    denom = va + vb + vc
+    safe = np.where(np.abs(denom) > 1e-300, denom, 1.0)
+    out = a + ab * (vb / safe)[:, None] + ac * (vc / safe)[:, None]  # interior
+    # edges (checked before vertices, which override them)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        m_bc = (va <= 0) & (d4 - d3 >= 0) & (d5 - d6 >= 0)
+        w = (d4 - d3) / np.where(m_bc, (d4 - d3) + (d5 - d6), 1.0)
+        out = np.where(m_bc[:, None], b + w[:, None] * (c - b), out)
+        m_ac = (vb <= 0) & (d2 >= 0) & (d6 <= 0)
+        w = d2 / np.where(m_ac, d2 - d6, 1.0)
+        out = np.where(m_ac[:, None], a + w[:, None] * ac, out)
+        m_ab = (vc <= 0) & (d1 >= 0) & (d3 <= 0)
+        w = d1 / np.where(m_ab, d1 - d3, 1.0)
+        out = np.where(m_ab[:, None], a + w[:, None] * ab, out)
+    out = np.where(((d6 >= 0) & (d5 <= d6))[:, None], c, out)
+    out = np.where(((d3 >= 0) & (d4 <= d3))[:, None], b, out)
+    out = np.where(((d1 <= 0) & (d2 <= 0))[:, None], a, out)
+    return out

@@ -9,7 +9,7 @@ Lengths stay in metres here; a GLB scene is written in metres too (glTF's unit).
 - ``shape_mesh(shape, extent=None)``: one shape in its parent frame;
 - ``body_mesh(body)``: every shape of a body (padding applied to the primitives) in its DH frame;
 - ``posed_link_meshes(cell, q)``: every moving body in the cell (world) frame;
-- ``zone_meshes(cell, extent)``: every zone panel in the cell frame;
+- ``zone_meshes(cell, extent)``: every zone panel in the cell frame (``zone_panel_names``);
 - ``cell_extent(cell, qs=None, points=None)``: the ``(2, 3)`` box a drawing covers;
 - ``row_scene(cell, row)`` / ``export_glb(scene, path)``: a coloured scene of one check row.
 """
@@ -164,10 +164,21 @@ def posed_link_meshes(cell, q, *, extent=None) -> dict:
 
 
 def zone_panel_names(zone) -> tuple:
-    """The panel name of each shape of ``zone`` (its ``panels`` if given, else ``"1"``, ``"2"``...)."""
-    if zone.panels and len(zone.panels) == len(zone.shapes):
+    """The panel name of each shape of ``zone``, as the clearance engine names them.
+
+    The zone's ``panels`` if there is one per shape; else ``""`` for a single-shape zone and
+    ``"shape 1"``, ``"shape 2"``... for several shapes.
+    """
+    if len(zone.panels) == len(zone.shapes):
         return tuple(str(p) for p in zone.panels)
-    return tuple(str(i + 1) for i in range(len(zone.shapes)))
+    if len(zone.shapes) == 1:
+        return ("",)
+    return tuple(f"shape {k + 1}" for k in range(len(zone.shapes)))
+
+
+def zone_node_name(zone: str, panel: str) -> str:
+    """The scene node name of a zone panel: ``zone:<zone>:<panel>``, or ``zone:<zone>`` without a panel."""
+    return f"zone:{zone}:{panel}" if panel else f"zone:{zone}"
 
 
 def zone_meshes(cell, extent=None) -> dict:
@@ -242,16 +253,19 @@ def cell_extent(cell, *, qs=None, points=None, margin: float = 0.1) -> np.ndarra
 
 @dataclass(frozen=True)
 class RowColours:
-    """The status of every body and every zone in one row: the worst status of the pairs it is in."""
+    """The status of every body and every zone panel in one row: the worst status of the pairs it is in.
+
+    ``bodies`` maps body names, ``zones`` maps ``(zone name, panel name)`` to a status.
+    """
 
     bodies: dict
     zones: dict
 
 
 def row_part_statuses(row) -> RowColours:
-    """Worst pair status per body and per zone of ``row`` (a ``BranchRow``); parts in no pair are absent.
+    """Worst pair status per body and per zone panel of ``row`` (a ``BranchRow``); parts in no pair are absent.
 
-    The zone entry only counts zone pairs; a self pair colours both its bodies.
+    A self pair colours both its bodies; a zone pair its body and its zone panel.
     """
     bodies: dict = {}
     zones: dict = {}
@@ -265,7 +279,7 @@ def row_part_statuses(row) -> RowColours:
         if p.kind == "self":
             worse(bodies, p.other, p.status)
         else:
-            worse(zones, p.other, p.status)
+            worse(zones, (p.other, p.panel), p.status)
     return RowColours(bodies=bodies, zones=zones)
 
 
@@ -290,10 +304,10 @@ def _coloured(mesh: trimesh.Trimesh, rgba, name: str) -> trimesh.Trimesh:
 def row_scene(cell, row, *, extent=None) -> trimesh.Scene:
     """A 3-D scene of ``row`` (a ``BranchRow`` with finite ``q``) in the cell frame, metres.
 
-    Node names: ``body:<name>`` for every moving body, ``zone:<zone>:<panel>`` for every zone panel.
-    A body takes the colour of its worst pair status (``STATUS_RGBA``; the row status if it is in no
-    pair); a zone is translucent grey, or translucent red if a pair of the row intrudes it or is below
-    its margin.
+    Node names: ``body:<name>`` for every moving body, ``zone_node_name(zone, panel)`` for every zone
+    panel. A body takes the colour of its worst pair status (``STATUS_RGBA``; the row's clearance
+    status if it is in no pair); a zone panel is translucent grey, or translucent red if a pair of the
+    row intrudes it or is below its margin.
     """
     if extent is None:
         extent = cell_extent(cell, qs=[row.q])
@@ -304,9 +318,9 @@ def row_scene(cell, row, *, extent=None) -> trimesh.Scene:
         rgba = STATUS_RGBA.get(status, STATUS_RGBA["clear"])
         scene.add_geometry(_coloured(mesh, rgba, status), node_name=f"body:{name}", geom_name=f"body:{name}")
     for (zone, panel), mesh in zone_meshes(cell, extent).items():
-        offended = parts.zones.get(zone) in ("intrusion", "below margin")
+        offended = parts.zones.get((zone, panel)) in ("intrusion", "below margin")
         rgba = ZONE_OFFENDED_RGBA if offended else ZONE_RGBA
-        name = f"zone:{zone}:{panel}"
+        name = zone_node_name(zone, panel)
         scene.add_geometry(_coloured(mesh, rgba, "offended zone" if offended else "zone"), node_name=name, geom_name=name)
     return scene
 

@@ -248,6 +248,26 @@ file = "ell-mm.obj"
     assert "link 3" not in cell.settings["generated_links"] and "upper arm" not in cell.settings["generated_links"]
 
 
+def test_gltf_binary_zone_mesh(tmp_path):
+    # glTF stores metres (its specification); trimesh writes and reads it
+    cyl = trimesh.creation.cylinder(radius=0.1, height=0.5, sections=64)
+    cyl.export(tmp_path / "drum.glb")
+    cell = load_cell(write_cell(tmp_path, tail="""
+[[zones]]
+name = "drum"
+kind = "machine"
+shape = "mesh"
+file = "drum.glb"
+mesh_units = "m"
+euler = [90, 0, 0]
+"""))
+    drum = zone(cell, "drum").shapes[0]
+    mesh = trimesh.Trimesh(drum.vertices, drum.faces)
+    assert drum.watertight and mesh.volume == pytest.approx(cyl.volume)
+    # turned 90 deg about x, the cylinder's axis lies along y: extents 0.2, 0.5, 0.2
+    np.testing.assert_allclose(mesh.extents, [0.2, 0.5, 0.2], atol=1e-6)
+
+
 def test_non_watertight_zone_mesh_warns_with_file_and_zone(tmp_path):
     box = trimesh.creation.box(extents=[100, 100, 100])
     open_box = trimesh.Trimesh(box.vertices, box.faces[:-2])  # one side missing

@@ -112,13 +112,15 @@ def test_wrist_near_singular(name):
     q[:, 4] = rng.uniform(-1e-7, 1e-7, 1000) - arm.offset[4]  # theta_5 within 1e-7 of 0
     res, found = check_round_trip(arm, q)
     if name == "ortho-standard":  # theta5 = 0 is the singularity of this wrist: flagged, one representative
-        assert res.singular_wrist[res.valid].all()
         arm_match = np.nan_to_num(wrapdiff(res.q[..., :3], q[:, None, :3]), nan=9.0).max(-1) < 1e-6
         sum46 = wrapdiff(res.q[..., 3] + res.q[..., 5], (q[:, 3] + q[:, 5])[:, None]) < 1e-6
         assert (arm_match & sum46).any(-1).all()
-        assert (res.valid.sum(-1) <= 4).all()
-    else:  # random twists: theta5 = 0 is no singularity there, the generating configuration is found
-        assert found.all() and not res.singular_wrist[res.valid].any()
+        assert (arm_match.sum(-1) == 1).all()  # one representative, not two wrist solutions
+        assert res.singular_wrist[arm_match].all()
+    else:  # random twists: at theta5 = 0 axes 4, 5, 6 are coplanar and the two wrist solutions merge
+        match = np.nan_to_num(wrapdiff(res.q, q[:, None]), nan=9.0).max(-1) < 1e-6
+        assert match.any(-1).all()
+        assert res.singular_wrist[match].all()
 
 
 def test_stretched_elbow_and_shoulder_singular():
@@ -211,7 +213,7 @@ def test_labels_from_geometry_not_index():
 def test_joint_limits_placement_and_excess():
     lim = np.radians([[0, 340], [-120, 150], [-170, 160], [-190, 190], [-125, 125], [-170, 170]])
     arm = ortho(limits=lim)
-    q = np.radians([-10.0, 10, -20, 30, 40, 50])  # joint 1 at -10 deg is 350 deg: outside [0, 340]
+    q = np.array([np.radians(-10.0), 0.2, 0.1, 0.4, 0.5, 0.6])  # joint 1 at -10 deg = 350 deg: outside [0, 340]
     res = arm.ik(arm.fk(q))
     i = int(np.argmin(wrapdiff(res.q, q).max(-1)))
     assert not res.within_limits[i, 0] and res.within_limits[i, 1:].all()
@@ -287,15 +289,18 @@ def test_wrist_singular_returns_one_representative():
     arm = ortho()
     q = np.radians([10.0, 20, -30, 40, 0, 60])  # theta5 = 0 exactly
     res = arm.ik(arm.fk(q))
-    assert res.singular_wrist.all()
-    # 4 arm solutions, one wrist representative each (theta4 + theta6 is what is fixed)
-    assert len(res) == 4
-    np.testing.assert_allclose(arm.fk(res.q), np.broadcast_to(arm.fk(q), (4, 4, 4)), atol=1e-10)
-    k = int(np.argmin(wrapdiff(res.q[:, :3], q[:3]).max(-1)))
+    reps = res.is_representative
+    np.testing.assert_allclose(arm.fk(res.q), np.broadcast_to(arm.fk(q), (len(res), 4, 4)), atol=1e-10)
+    same_arm = wrapdiff(res.q[:, :3], q[:3]).max(-1) < 1e-9
+    # the arm solution that made the pose has theta5 = 0: one representative, theta4 + theta6 kept
+    assert (same_arm & reps).sum() == 1 and res.singular_wrist[same_arm].all()
+    k = int(np.flatnonzero(same_arm & reps)[0])
     assert wrapdiff(res.q[k, 3] + res.q[k, 5], q[3] + q[5]) < 1e-9
+    assert not res.singular_wrist[~same_arm].any()
     away = arm.ik(arm.fk(np.radians([10.0, 20, -30, 40, 30, 60])))
     assert not away.singular_wrist.any() and not away.singular_elbow.any() and not away.singular_shoulder.any()
-    assert len(away) == 8
+    # the same arm solutions, each with two wrist solutions away from the singularity
+    assert away.is_representative.sum() == reps.sum() + 1
 
 
 def test_bad_input():
@@ -306,7 +311,7 @@ def test_bad_input():
     bad[3, 0] = 1.0
     with pytest.raises(PoseError, match="bottom row"):
         arm.ik(bad)
-    with pytest.raises(PoseError, match=r"pose\[1\]"):
+    with pytest.raises(PoseError, match=r"\[1\]: bottom row"):
         arm.ik(np.stack([np.eye(4), bad]))
     with pytest.raises(InputError, match="axis 3"):
         Arm.from_dh([0, 0.5, 0, 0, 0, 0], ORTHO["alpha"], [0.4, 0, 0, 0, 0, 0.1], np.zeros(6)).ik(np.eye(4))

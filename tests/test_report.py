@@ -283,3 +283,34 @@ def test_figures_have_mm_axes_equal_aspect_and_legend(result):
     ys = sorted(float(y) for c in ax.collections if hasattr(c, "get_offsets") for y in np.asarray(c.get_offsets())[:, 1] if c.get_label() in {r.status for r in result.rows})
     want = sorted(float(to_mm(r.clearance)) for r in result.rows if np.isfinite(r.clearance))
     np.testing.assert_allclose(ys, want)
+
+
+def test_motions_are_reported_when_present(result, tmp_path):
+    import base64
+    import dataclasses
+
+    @dataclasses.dataclass(frozen=True)
+    class Motion:  # the report only needs plain fields and a status; the real type comes with motions
+        name: str
+        start: str
+        end: str
+        status: str
+        clearance: float
+        samples: np.ndarray
+
+    motion = Motion("pick-to-place", "pick-table", "place-east", "below margin", 0.0123456, np.linspace(0, 1, 3))
+    with_motion = dataclasses.replace(result, motions=(motion,))
+    files = write_report(with_motion, tmp_path, now=NOW)
+    text = files["report.html"].read_text(encoding="utf-8")
+    assert "<h2>Motions</h2>" in text and "pick-to-place" in text
+    doc = _strict_json(files["clearance.json"])
+    assert doc["motions"] == [
+        {"name": "pick-to-place", "start": "pick-table", "end": "place-east", "status": "below margin",
+         "clearance": 0.012346, "samples": [0.0, 0.5, 1.0]}
+    ]
+    assert "Motions" in " ".join(p.extract_text() for p in pytest.importorskip("pypdf").PdfReader(files["report.pdf"]).pages)
+    # without motions the section is absent
+    assert "<h2>Motions</h2>" not in write_report(result, tmp_path / "b", now=NOW)["report.html"].read_text()
+    # every embedded picture is a PNG
+    for chunk in text.split('src="data:image/png;base64,')[1:]:
+        assert base64.b64decode(chunk.split('"', 1)[0])[:8] == b"\x89PNG\r\n\x1a\n"

@@ -17,6 +17,7 @@ from envelope.check import BELOW_MARGIN, CLEAR, INTRUSION, OUTSIDE_LIMITS, UNREA
 from envelope.geometry import Body, Box, Capsule, HalfSpace, Zone
 from envelope.kinematics import Arm
 from envelope.poses import invert
+from envelope.scene import zone_panel_names
 
 DEG = np.pi / 180.0
 N_AXIS_SAMPLES = 401
@@ -136,7 +137,7 @@ def pair_rows(cell: Cell, q) -> tuple:
     for body in cell.bodies:
         pts, radius = _segment_points(body, world_from_frame)
         for zone in cell.zones:
-            for panel, shape in zip(zone.panels or ("1",) * len(zone.shapes), zone.shapes):
+            for panel, shape in zip(zone_panel_names(zone), zone.shapes):
                 if isinstance(shape, Box):
                     d, wb, wo = _capsule_box(pts, radius, shape)
                 else:
@@ -177,7 +178,8 @@ def invented_result(cell: Cell | None = None) -> CheckResult:
                 BranchRow(
                     name, "world", branch, 0, -1, status, clearance_status, q, excess,
                     ("wrist",) if abs(q[4]) < 1e-9 else (), worst.distance, worst.required,
-                    worst.distance - worst.required, worst.body, worst.other, worst.witness_body,
+                    worst.distance - worst.required, worst.body,
+                    worst.other + (f"/{worst.panel}" if worst.panel else ""), worst.witness_body,
                     worst.witness_other, pairs, "",
                 )
             )

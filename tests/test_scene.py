@@ -25,6 +25,8 @@ from envelope.scene import (
     posed_link_meshes,
     row_scene,
     shape_mesh,
+    zone_node_name,
+    zone_panel_names,
 )
 
 from test_report_support import invented_cell, invented_result
@@ -169,12 +171,12 @@ def test_row_scene_names_colours_and_glb_round_trip(tmp_path):
     names = set(back.graph.nodes_geometry)
     expected = {f"body:{b.name}" for b in result.cell.bodies}
     for z in result.cell.zones:
-        expected |= {f"zone:{z.name}:{p}" for p in (z.panels or ("1",) * len(z.shapes))}
+        expected |= {zone_node_name(z.name, p) for p in zone_panel_names(z)}
     assert names == expected
     # the offending body and zone are red; an untouched zone is translucent grey
     colour = lambda name: tuple(back.geometry[back.graph[name][1]].visual.material.baseColorFactor)  # noqa: E731
     assert colour(f"body:{row.closest_body}") == STATUS_RGBA["intrusion"]
-    assert colour(f"zone:{row.closest_other}:1") == ZONE_OFFENDED_RGBA
+    assert colour(f"zone:{row.closest_other}") == ZONE_OFFENDED_RGBA  # a one-shape zone: no panel name
     assert colour("zone:east fence:north") == ZONE_RGBA
     # the loaded geometry sits where it was posed
     posed = posed_link_meshes(result.cell, row.q)[row.closest_body]

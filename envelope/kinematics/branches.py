@@ -23,7 +23,8 @@ BRANCH_LABELS = tuple(f"{s}-{e}-{w}" for s in ("front", "back") for e in ("up", 
 """The eight labels, indexed by branch code."""
 
 WRIST_SINGULAR_TOL = 1e-6
-"""Wrist singular: sine of the angle between axes 4 and 6 below this (only theta4 + theta6 fixed)."""
+"""Wrist singular: ``|det[z4 z5 z6]|`` below this (axes 4, 5, 6 coplanar; for the usual wrist that is
+``|sin theta5|``, axes 4 and 6 aligned, where only theta4 + theta6 is fixed)."""
 SHOULDER_SINGULAR_TOL = 1e-6
 """Shoulder singular: wrist centre closer than this (m) to axis 1."""
 ELBOW_SINGULAR_TOL = 1e-6
@@ -51,7 +52,7 @@ def codes_from_geometry(w, o1, z1, x1, o2, z2, o3, wrist_sign) -> np.ndarray:
 
 
 def singularity_measures(w, o1, z1, o2, z2, o3, z3, wrist_sin) -> np.ndarray:
-    """``(..., 3)``: [sin(angle axis 4 / axis 6), distance of w from axis 1 (m), elbow sine]."""
+    """``(..., 3)``: [|det[z4 z5 z6]|, distance of w from axis 1 (m), elbow sine]."""
     r = w - o1
     shoulder = np.linalg.norm(r - _dot(r, z1)[..., None] * z1, axis=-1)
     j2 = np.cross(z2, w - o2)

@@ -44,7 +44,7 @@ class IKSolutions:
         At a singularity (tolerances in ``branches.py``). At a wrist singularity only theta4 + theta6
         is fixed and one representative is returned.
     singular_measure : (k, 3) float64
-        [sin of angle between axes 4 and 6, distance of the wrist centre from axis 1 (m), elbow sine].
+        [|det[z4 z5 z6]| (wrist), distance of the wrist centre from axis 1 (m), elbow sine].
     twin : (k,) int
         Row of the representative: ``twin[i] == i`` for a branch, else the branch this row is a turn
         variant of (same geometry: same link poses, only a joint turned by whole turns).

@@ -92,7 +92,7 @@ def solve(chain: Chain, offset, base_from_flange: np.ndarray, n_starts: int = DE
     w = o[..., 4, :]
     wsign = np.einsum("...i,...i->...", np.cross(z[..., 3, :], z[..., 5, :]), z[..., 4, :])
     code = codes_from_geometry(w, o[..., 0, :], z[..., 0, :], x1, o[..., 1, :], z[..., 1, :], o[..., 2, :], wsign)
-    wsin = np.linalg.norm(np.cross(z[..., 3, :], z[..., 5, :]), axis=-1)
+    wsin = np.abs(wsign)  # |det[z4 z5 z6]|
     measure = singularity_measures(w, o[..., 0, :], z[..., 0, :], o[..., 1, :], z[..., 1, :], o[..., 2, :],
                                    z[..., 2, :], wsin)
     return q, ok, code, measure

@@ -334,7 +334,10 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
     sw = np.sqrt(np.maximum(hxy**2 - K**2, 0.0)) / abs(sa5)
     acw = np.arctan2(sw, cw)
     t5 = np.stack([acw, -acw], -1)  # (n,4,2)
-    singular_w = hxy < WRIST_SINGULAR_TOL
+    # wrist singular: axes 4, 5, 6 coplanar, |det[z4 z5 z6]| = |sa4 sa5 sin t5|; the two wrist solutions
+    # then coincide (or, with axes 4 and 6 aligned, only t4 + t6 is fixed): keep one representative
+    wdet = np.abs(sa4 * sa5) * sw
+    singular_w = wdet < WRIST_SINGULAR_TOL
     c5, s5 = np.cos(t5), np.sin(t5)
     vx5 = sa5 * s5
     vyy, vzz = -sa5 * c5, ca5
@@ -374,6 +377,6 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
     wsign = (-sa4 * sa5 * np.sin(t5)).reshape(n, N_SLOTS)
     w8 = np.broadcast_to(wc[:, None, :], (n, N_SLOTS, 3))
     code = codes_from_geometry(w8, rep(o1), rep(z1), rep(x1), rep(o2), rep(z2), rep(o3), wsign)
-    measure = singularity_measures(w8, rep(o1), rep(z1), rep(o2), rep(z2), rep(o3), rep(z3), rep(hxy))
+    measure = singularity_measures(w8, rep(o1), rep(z1), rep(o2), rep(z2), rep(o3), rep(z3), rep(wdet))
     return RawSolution(q=q, valid=valid, wrist_centre=wc, code=code, measure=measure,
                        arm_found=ok.any(-1))

@@ -66,11 +66,24 @@ def drawn_rows(result, limit: int = ARM_DRAW_LIMIT) -> list:
     return out
 
 
+def zone_of(closest_other: str, zone_names) -> str:
+    """The zone named by a row's ``closest_other`` (``zone`` or ``zone/panel``); ``""`` if none (a body)."""
+    if closest_other in zone_names:
+        return closest_other
+    head = closest_other.rpartition("/")[0]
+    return head if head in zone_names else ""
+
+
 def offended_zones(result, rows=None) -> set:
     """Names of zones a finding involves: the closest zone of every intrusion / below-margin row, and
     every zone in an intrusion / below-margin pair of the rows ``rows`` (indices)."""
     zone_names = {z.name for z in result.cell.zones}
-    out = {r.closest_other for r in result.rows if r.status in FINDING_STATUSES and r.closest_other in zone_names}
+    out = set()
+    for r in result.rows:
+        if r.status in FINDING_STATUSES:
+            zone = zone_of(r.closest_other, zone_names)
+            if zone:
+                out.add(zone)
     for i in rows or ():
         for p in result.rows[i].pairs:
             if p.kind != "self" and p.status in FINDING_STATUSES:

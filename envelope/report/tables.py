@@ -10,6 +10,7 @@ import csv
 import dataclasses
 import io
 import json
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -127,22 +128,88 @@ def _pair_key(p) -> tuple:
     return (p.body, p.other, p.kind, p.zone_kind, p.panel, float(p.required))
 
 
-def pair_definitions(result) -> tuple:
+@dataclass(frozen=True, eq=False)
+class PairTable:
+    """One row's pairs as parallel arrays (metres), however the row holds them.
+
+    ``keys[k]`` is ``(body, other, kind, zone_kind, panel, required)`` of entry k.
+    """
+
+    keys: list
+    distance: np.ndarray
+    distance_upper: np.ndarray
+    depth_known: np.ndarray
+    pruned: np.ndarray
+    status: list
+    witness_body: np.ndarray
+    witness_other: np.ndarray
+
+
+def pair_table(row, cache: dict | None = None) -> PairTable:
+    """The pairs of ``row`` as a ``PairTable``.
+
+    A lazy pair sequence from ``run_check`` (with ``defs``, ``result`` and ``zone_kinds``) is read
+    straight from its arrays, without building a ``PairRow`` per pair; any other sequence of
+    ``PairRow`` is read pair by pair. ``cache`` keeps the definition keys of shared ``defs``.
+    """
+    pairs = row.pairs
+    defs, res, zone_kinds = (getattr(pairs, a, None) for a in ("defs", "result", "zone_kinds"))
+    if defs is not None and zone_kinds is not None and hasattr(res, "distance") and hasattr(res, "status"):
+        from ..clearance import STATUS_NAMES
+
+        cache = {} if cache is None else cache
+        hit = cache.get(id(defs))
+        if hit is None or hit[0] is not defs:
+            keys = [
+                (p.body, p.other, p.kind, zone_kinds.get(p.zone, "") if p.kind == "zone" else "", p.panel, float(p.required))
+                for p in defs
+            ]
+            hit = cache[id(defs)] = (defs, keys)
+        names = np.array(STATUS_NAMES, dtype=object)
+        return PairTable(
+            keys=hit[1],
+            distance=np.asarray(res.distance, dtype=np.float64).reshape(-1),
+            distance_upper=np.asarray(res.distance_upper, dtype=np.float64).reshape(-1),
+            depth_known=np.asarray(res.depth_known, dtype=bool).reshape(-1),
+            pruned=np.asarray(res.pruned, dtype=bool).reshape(-1),
+            status=list(names[np.asarray(res.status, dtype=np.int64).reshape(-1)]),
+            witness_body=np.asarray(res.witness_body, dtype=np.float64).reshape(-1, 3),
+            witness_other=np.asarray(res.witness_other, dtype=np.float64).reshape(-1, 3),
+        )
+    items = list(pairs)
+    return PairTable(
+        keys=[_pair_key(p) for p in items],
+        distance=np.array([p.distance for p in items], dtype=np.float64),
+        distance_upper=np.array([p.distance_upper for p in items], dtype=np.float64),
+        depth_known=np.array([bool(p.depth_known) for p in items], dtype=bool),
+        pruned=np.array([bool(p.pruned) for p in items], dtype=bool),
+        status=[p.status for p in items],
+        witness_body=np.array([p.witness_body for p in items], dtype=np.float64).reshape(-1, 3),
+        witness_other=np.array([p.witness_other for p in items], dtype=np.float64).reshape(-1, 3),
+    )
+
+
+def pair_definitions(result, cache: dict | None = None) -> tuple:
     """``(definitions, index)``: every distinct pair (in first-seen order) and ``{key: position}``."""
     defs, index = [], {}
+    seen_tables = set()
     for row in result.rows:
-        for p in row.pairs:
-            key = _pair_key(p)
+        table = pair_table(row, cache)
+        if id(table.keys) in seen_tables:
+            continue  # the same shared definitions as an earlier row
+        seen_tables.add(id(table.keys))
+        for key in table.keys:
             if key not in index:
                 index[key] = len(defs)
+                body, other, kind, zone_kind, panel, required = key
                 defs.append(
                     {
-                        "body": p.body,
-                        "other": p.other,
-                        "kind": p.kind,
-                        "zone_kind": p.zone_kind,
-                        "panel": p.panel,
-                        "required_mm": rnd(to_mm(p.required)),
+                        "body": body,
+                        "other": other,
+                        "kind": kind,
+                        "zone_kind": zone_kind,
+                        "panel": panel,
+                        "required_mm": rnd(to_mm(required)),
                     }
                 )
     return defs, index
@@ -153,36 +220,36 @@ WITNESSES = ("findings", "all")
 the default, keeping big checks compact) or ``all`` (every pair that was not pruned)."""
 
 
-def _row_pairs(row, index: dict, status_codes: list, n_defs: int, witnesses: str) -> dict:
-    pairs = row.pairs
-    codes = []
-    for p in pairs:
-        if p.status not in status_codes:
-            status_codes.append(p.status)
-        codes.append(status_codes.index(p.status))
-    where = [index[_pair_key(p)] for p in pairs]
-    # null: the row holds every defined pair, in definition order (the usual case: saves an array)
-    pair = None if len(where) == n_defs and where == list(range(n_defs)) else where
-    if witnesses == "all":
-        keep = [k for k, p in enumerate(pairs) if not p.pruned]
-    else:
-        keep = [k for k, p in enumerate(pairs) if p.status != "clear" and not p.pruned]
-    wb = np.array([pairs[k].witness_body for k in keep], dtype=np.float64).reshape(-1, 3)
-    wo = np.array([pairs[k].witness_other for k in keep], dtype=np.float64).reshape(-1, 3)
+def _row_pairs(row, index: dict, status_codes: list, n_defs: int, witnesses: str, cache: dict) -> dict:
+    t = pair_table(row, cache)
+    for s in dict.fromkeys(t.status):
+        if s not in status_codes:
+            status_codes.append(s)
+    code_of = {s: k for k, s in enumerate(status_codes)}
+    where_cache = cache.setdefault("where", {})
+    hit = where_cache.get(id(t.keys))
+    if hit is None or hit[0] is not t.keys:
+        where = [index[key] for key in t.keys]
+        # null: the row holds every defined pair, in definition order (the usual case: saves an array)
+        pair = None if len(where) == n_defs and where == list(range(n_defs)) else where
+        hit = where_cache[id(t.keys)] = (t.keys, pair)
+    status = np.array(t.status, dtype=object)
+    keep_mask = ~t.pruned if witnesses == "all" else (~t.pruned & (status != "clear"))
+    keep = np.flatnonzero(keep_mask)
     return {
-        "pair": pair,
-        "distance_mm": rnd_list(to_mm(np.array([p.distance for p in pairs], dtype=np.float64))),
-        "distance_upper_mm": rnd_list(to_mm(np.array([p.distance_upper for p in pairs], dtype=np.float64))),
-        "depth_known": [1 if p.depth_known else 0 for p in pairs],
-        "pruned": [1 if p.pruned else 0 for p in pairs],
-        "status": codes,
-        "witness": keep,
-        "witness_body_mm": rnd_list(to_mm(wb)),
-        "witness_other_mm": rnd_list(to_mm(wo)),
+        "pair": hit[1],
+        "distance_mm": rnd_list(to_mm(t.distance)),
+        "distance_upper_mm": rnd_list(to_mm(t.distance_upper)),
+        "depth_known": t.depth_known.astype(np.int8).tolist(),
+        "pruned": t.pruned.astype(np.int8).tolist(),
+        "status": [code_of[s] for s in t.status],
+        "witness": keep.tolist(),
+        "witness_body_mm": rnd_list(to_mm(t.witness_body[keep])),
+        "witness_other_mm": rnd_list(to_mm(t.witness_other[keep])),
     }
 
 
-def row_record(i: int, row, rank: int, index: dict, status_codes: list, n_defs: int, witnesses: str = "findings") -> dict:
+def row_record(i, row, rank, index, status_codes, n_defs, witnesses="findings", cache=None) -> dict:
     """One row of clearance.json (see docs/outputs.md)."""
     joint, excess = worst_limit(row)
     rec = {
@@ -208,7 +275,7 @@ def row_record(i: int, row, rank: int, index: dict, status_codes: list, n_defs: 
         "witness_other_mm": rnd_list(to_mm(row.witness_other)),
         "note": row.note,
     }
-    rec["pairs"] = _row_pairs(row, index, status_codes, n_defs, witnesses)
+    rec["pairs"] = _row_pairs(row, index, status_codes, n_defs, witnesses, {} if cache is None else cache)
     return rec
 
 
@@ -245,7 +312,8 @@ def write_json(result, path, *, witnesses: str = "findings"):
     """
     if witnesses not in WITNESSES:
         raise ValueError(f"witnesses must be one of {WITNESSES}, got {witnesses!r}")
-    defs, index = pair_definitions(result)
+    cache: dict = {}
+    defs, index = pair_definitions(result, cache)
     status_codes = list(PAIR_STATUS_CODES)
     rank = ranks(result)
     head = {
@@ -268,7 +336,7 @@ def write_json(result, path, *, witnesses: str = "findings"):
     }
     # row records are built first so that every pair status code is known when the header is written
     lines = [
-        json.dumps(row_record(i, row, rank[i], index, status_codes, len(defs), witnesses), sort_keys=True, separators=(",", ":"), allow_nan=False)
+        json.dumps(row_record(i, row, rank[i], index, status_codes, len(defs), witnesses, cache), sort_keys=True, separators=(",", ":"), allow_nan=False)
         for i, row in enumerate(result.rows)
     ]
     head["pair_status_codes"] = status_codes
