@@ -234,6 +234,12 @@ def _evaluate(cell, q, *, jobs, progress, prune, chunk=256):
     return ClearanceResult.concatenate(parts), engine_for(cell, prune).pairs
 
 
+def branch_order(sol) -> list:
+    """Row order of one pose's solutions: branches by branch code, each followed by its turn variants."""
+    reps = sorted((k for k in range(len(sol)) if sol.twin[k] == k), key=lambda k: (int(sol.code[k]), k))
+    return [j for k in reps for j in range(len(sol)) if sol.twin[j] == k]
+
+
 def solve_targets(cell: Cell) -> list:
     """Every IK solution (``IKSolutions``) of every target of ``cell``, in target order."""
     if not cell.targets:
@@ -301,9 +307,7 @@ def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True) -
             continue
         first_row = {}
         turns = {}
-        reps = sorted((k for k in range(len(sol)) if sol.twin[k] == k), key=lambda k: (int(sol.code[k]), k))
-        order = [j for k in reps for j in range(len(sol)) if sol.twin[j] == k]
-        for k in order:
+        for k in branch_order(sol):
             rep = int(sol.twin[k])
             res = clearance._index(index_of[(t, rep)])
             worst = int(res.worst)
@@ -371,7 +375,7 @@ def solve_pose(cell: Cell, xyz_mm, angles_deg, *, frame: str = "world", conventi
     base_from_flange = cell.base_from_flange(world_from_frame @ frame_from_tcp)
     sol = cell.arm.ik(base_from_flange)
     branches = []
-    for k in range(len(sol)):
+    for k in branch_order(sol):
         notes = []
         if not sol.within_limits[k].all():
             notes.append(_joint_note(sol.q[k], cell.arm.limits))
@@ -383,7 +387,7 @@ def solve_pose(cell: Cell, xyz_mm, angles_deg, *, frame: str = "world", conventi
         branches.append(
             {
                 "branch": sol.labels[k],
-                "q_deg": [round(float(v), 6) for v in to_degrees(sol.q[k])],
+                "q_deg": [round(float(v), 6) + 0.0 for v in to_degrees(sol.q[k])],
                 "within_limits": bool(sol.within_limits[k].all()),
                 "excess_deg": [round(float(v), 6) for v in to_degrees(sol.excess[k])],
                 "singular": list(singular),

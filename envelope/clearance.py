@@ -772,9 +772,13 @@ class ClearanceEngine:
             res = fcl.DistanceResult()
             d_fcl = float(fcl.distance(oa, ob, req, res))
             p0, p1 = (np.asarray(x, dtype=np.float64) for x in res.nearest_points)
+            if not (np.isfinite(p0).all() and np.isfinite(p1).all() and np.isfinite(d_fcl)
+                    and np.abs(p0).max() < 1e6 and np.abs(p1).max() < 1e6):
+                p0 = p1 = np.full(3, np.nan)  # no usable witness (seen for meshes in contact)
+                d_fcl = d_fcl if np.isfinite(d_fcl) else 0.0
             v = p1 - p0
-            nv = float(np.sqrt(v @ v))
-            if abs(nv - abs(d_fcl)) > 1e-6 * max(1.0, abs(d_fcl)):
+            nv = float(np.sqrt(v @ v)) if np.isfinite(v).all() else 0.0
+            if nv > 0 and abs(nv - abs(d_fcl)) > 1e-6 * max(1.0, abs(d_fcl)):
                 # python-fcl sometimes returns a witness in its object's local frame (seen for
                 # mesh-sphere pairs): take the reading whose separation matches the distance
                 Ma, Mb = self._world_from_obj(sa, cache), self._world_from_obj(sb, cache)

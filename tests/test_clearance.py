@@ -388,7 +388,7 @@ def mixed_cell():
                      _translation([1.3 * np.cos(ang), 1.3 * np.sin(ang), rng.uniform(0.2, 1.2)])),), 0.05))
     ring = trimesh.creation.annulus(0.1, 0.3, 0.2, transform=_translation([0.0, -1.0, 0.9]))
     zones += [
-        Zone("floor", "floor", (HalfSpace([0, 0, 1.0], 0.0),), 0.0, allowed=frozenset({"link0"})),
+        Zone("floor", "floor", (HalfSpace([0, 0, 1.0], -0.16),), 0.0, allowed=frozenset({"link0"})),
         Zone("post", "machine", (Cylinder(0.1, 1.5, _translation([0.9, 0.4, 0.75])),), 0.03),
         Zone("lamp", "keep-out", (Sphere([-0.8, 0.8, 1.4], 0.15),), 0.05),
         Zone("ring", "keep-out", (TriMesh(ring.vertices, ring.faces, watertight=True),), 0.02),
@@ -406,7 +406,7 @@ def _same(a: ClearanceResult, b: ClearanceResult):
 
 def test_pruning_changes_no_status_nor_worst():
     cell = mixed_cell()
-    q = np.random.default_rng(11).uniform(-np.pi, np.pi, (300, 6))
+    q = np.random.default_rng(11).uniform(-np.pi, np.pi, (150, 6))
     q[:, 1:3] *= 0.5
     fast = ClearanceEngine(cell, prune=True).evaluate(q)
     full = ClearanceEngine(cell, prune=False).evaluate(q)

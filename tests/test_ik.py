@@ -118,7 +118,8 @@ def test_wrist_near_singular(name):
         assert (arm_match.sum(-1) == 1).all()  # one representative, not two wrist solutions
         assert res.singular_wrist[arm_match].all()
     else:  # random twists: at theta5 = 0 axes 4, 5, 6 are coplanar and the two wrist solutions merge
-        match = np.nan_to_num(wrapdiff(res.q, q[:, None]), nan=9.0).max(-1) < 1e-6
+        # at a singularity the joints are fixed only to ~sqrt(rounding): 1e-5 rad, while FK(IK) = T to 1e-10
+        match = np.nan_to_num(wrapdiff(res.q, q[:, None]), nan=9.0).max(-1) < 1e-5
         assert match.any(-1).all()
         assert res.singular_wrist[match].all()
 

@@ -143,6 +143,7 @@ class PairTable:
     status: list
     witness_body: np.ndarray
     witness_other: np.ndarray
+    shared: bool = False  # ``keys`` is the cached list of definitions shared by many rows
 
 
 def pair_table(row, cache: dict | None = None) -> PairTable:
@@ -175,6 +176,7 @@ def pair_table(row, cache: dict | None = None) -> PairTable:
             status=list(names[np.asarray(res.status, dtype=np.int64).reshape(-1)]),
             witness_body=np.asarray(res.witness_body, dtype=np.float64).reshape(-1, 3),
             witness_other=np.asarray(res.witness_other, dtype=np.float64).reshape(-1, 3),
+            shared=True,
         )
     items = list(pairs)
     return PairTable(
@@ -192,12 +194,13 @@ def pair_table(row, cache: dict | None = None) -> PairTable:
 def pair_definitions(result, cache: dict | None = None) -> tuple:
     """``(definitions, index)``: every distinct pair (in first-seen order) and ``{key: position}``."""
     defs, index = [], {}
-    seen_tables = set()
+    seen_shared: dict = {}  # id -> the shared key list itself (held, so the id stays unique)
     for row in result.rows:
         table = pair_table(row, cache)
-        if id(table.keys) in seen_tables:
-            continue  # the same shared definitions as an earlier row
-        seen_tables.add(id(table.keys))
+        if table.shared:
+            if seen_shared.get(id(table.keys)) is table.keys:
+                continue  # the same shared definitions as an earlier row
+            seen_shared[id(table.keys)] = table.keys
         for key in table.keys:
             if key not in index:
                 index[key] = len(defs)
@@ -226,13 +229,15 @@ def _row_pairs(row, index: dict, status_codes: list, n_defs: int, witnesses: str
         if s not in status_codes:
             status_codes.append(s)
     code_of = {s: k for k, s in enumerate(status_codes)}
-    where_cache = cache.setdefault("where", {})
-    hit = where_cache.get(id(t.keys))
+    where_cache = cache.setdefault("where", {})  # only for shared key lists, which it holds
+    hit = where_cache.get(id(t.keys)) if t.shared else None
     if hit is None or hit[0] is not t.keys:
         where = [index[key] for key in t.keys]
         # null: the row holds every defined pair, in definition order (the usual case: saves an array)
         pair = None if len(where) == n_defs and where == list(range(n_defs)) else where
-        hit = where_cache[id(t.keys)] = (t.keys, pair)
+        hit = (t.keys, pair)
+        if t.shared:
+            where_cache[id(t.keys)] = hit
     status = np.array(t.status, dtype=object)
     keep_mask = ~t.pruned if witnesses == "all" else (~t.pruned & (status != "clear"))
     keep = np.flatnonzero(keep_mask)

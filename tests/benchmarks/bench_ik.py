@@ -1,0 +1,67 @@
+"""Benchmark of envelope's inverse kinematics (a script; pytest does not collect it).
+
+Run:  /work/venv/bin/python tests/benchmarks/bench_ik.py [--n 100000]
+
+For random reachable poses (made by FK of random joint values) of an ortho-parallel arm and of an arm
+with general twists: batch IK time per pose (all branches), single-pose call latency, and the ratio
+of batch IK time to batch FK time of the n * 8 configurations IK returned, in the same run.
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+
+import numpy as np
+
+from envelope.kinematics import Arm
+
+PI = np.pi
+
+
+def arms():
+    ortho = Arm.from_dh([0.15, 0.6, 0.12, 0, 0, 0], [-PI / 2, 0, -PI / 2, PI / 2, -PI / 2, 0],
+                        [0.45, 0, 0, 0.65, 0, 0.1], [0, -PI / 2, 0, 0, 0, 0], name="ortho-parallel")
+    rng = np.random.default_rng(7)
+    a, al, d, off = rng.uniform(-0.5, 0.5, 6), rng.uniform(-PI, PI, 6), rng.uniform(-0.5, 0.5, 6), rng.uniform(-PI, PI, 6)
+    a[3] = a[4] = d[4] = 0.0
+    general = Arm.from_dh(a, al, d, off, name="general-twist")
+    return [ortho, general]
+
+
+def best_of(fn, repeat):
+    times = []
+    for _ in range(repeat):
+        t = time.perf_counter()
+        out = fn()
+        times.append(time.perf_counter() - t)
+    return min(times), out
+
+
+def main():
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--n", type=int, default=100_000)
+    parser.add_argument("--repeat", type=int, default=3)
+    args = parser.parse_args()
+    n = args.n
+    rng = np.random.default_rng(1)
+    print(f"n = {n} poses, best of {args.repeat}")
+    for arm in arms():
+        T = arm.fk(rng.uniform(-PI, PI, (n, 6)))
+        t_ik, res = best_of(lambda: arm.ik(T), args.repeat)
+        q = np.where(res.valid[..., None], res.q, 0.0).reshape(-1, 6)  # n * 8 configurations
+        t_fk, _ = best_of(lambda: arm.fk(q), args.repeat)
+        single = T[:200]
+        t0 = time.perf_counter()
+        for P in single:
+            arm.ik(P)
+        t_single = (time.perf_counter() - t0) / len(single)
+        print(
+            f"{arm.name:15s} batch IK {t_ik / n * 1e6:6.2f} us/pose   FK of 8 configs {t_fk / n * 1e6:6.2f} us/pose   "
+            f"IK/FK {t_ik / t_fk:5.2f}   single-pose IK {t_single * 1e6:7.1f} us   "
+            f"solutions/pose {res.valid.sum() / n:4.2f}"
+        )
+
+
+if __name__ == "__main__":
+    main()
