@@ -15,7 +15,15 @@ from pathlib import Path
 
 import numpy as np
 
-from .cellshapes import BODY_MESH_MODEL, POSE_KEYS, Reader, _suggest, generated_link_shapes, read_shapes, transform_shape
+from .cellshapes import (
+    BODY_MESH_MODEL,
+    POSE_KEYS,
+    Reader,
+    generated_link_shapes,
+    read_shapes,
+    suggest,
+    transform_shape,
+)
 from .errors import CellFileError, InputError, PoseError, ProgramError
 from .geometry import ZONE_KINDS, Body, Zone
 from .kinematics import Arm
@@ -81,7 +89,17 @@ class Cell:
     warnings : tuple of str
         Load-time warnings (non-watertight zone meshes...), repeated in the report.
     inputs : tuple of (str, str)
-        Every file read, with its SHA-256 hex digest.
+        Every file read, with its SHA-256 hex digest (paths relative to the cell file's folder).
+    frames : dict of str to (4, 4)
+        ``world_from_frame`` of every named frame, the built-in ``"world"`` and ``"base"`` included.
+    programs : tuple of Program
+        The cell file's programs, in file order.
+    settings : dict
+        What the loader used: ``units``, ``angle_units`` of the file; ``required_clearance`` (zone
+        kind -> metres); ``self_clearance``, ``stopping_allowance`` (metres); ``body_mesh_model``
+        (``"convex hull"``: link/tool meshes are replaced by their hulls); ``generated_links``
+        (names of links given capsules from the DH table); ``zone_meshes`` ((zone, file,
+        watertight) triples).
     """
 
     name: str
@@ -340,7 +358,7 @@ def _resolve_frames(r: Reader, table: dict, mount: np.ndarray, mount_parent: str
     known = ("world",) + tuple(defs)
     for name, (parent, _, item) in defs.items():
         if parent not in known:
-            raise r.error(f"unknown parent frame {parent!r}{_suggest(parent, known)}", item)
+            raise r.error(f"unknown parent frame {parent!r}{suggest(parent, known)}", item)
 
     world = np.eye(4)
     world.flags.writeable = False
@@ -366,7 +384,7 @@ def _resolve_frames(r: Reader, table: dict, mount: np.ndarray, mount_parent: str
 def _frame(r: Reader, frames: dict, table: dict, item) -> tuple[str, np.ndarray]:
     name = r.string(table, "frame", item, default="world")
     if name not in frames:
-        raise r.error(f"unknown frame {name!r}{_suggest(name, frames)}; known frames: {', '.join(frames)}", item)
+        raise r.error(f"unknown frame {name!r}{suggest(name, frames)}; known frames: {', '.join(frames)}", item)
     return name, frames[name]
 
 
@@ -415,7 +433,7 @@ def _read_self_pairs(r: Reader, data: dict, names: list) -> set:
     for k, (a, b) in enumerate(value, start=1):
         for n in (a, b):
             if n not in names:
-                raise r.error(f"pair {k}: unknown body {n!r}{_suggest(n, names)}; bodies: {', '.join(names)}", item)
+                raise r.error(f"pair {k}: unknown body {n!r}{suggest(n, names)}; bodies: {', '.join(names)}", item)
         if a == b:
             raise r.error(f"pair {k} names the same body twice ({a!r})", item)
         out.add(frozenset((a, b)))
@@ -442,7 +460,7 @@ def _read_zones(r: Reader, data: dict, frames: dict, clearance: dict, body_names
             raise r.error("key 'allowed' must be a list of body names", item)
         for n in allowed:
             if n not in body_names:
-                raise r.error(f"'allowed' names an unknown body {n!r}{_suggest(n, body_names)}", item)
+                raise r.error(f"'allowed' names an unknown body {n!r}{suggest(n, body_names)}", item)
         _, world_from_frame = _frame(r, frames, zt, item)
         parts = read_shapes(r, zt, item, ZONE_KEYS, for_zone=True)
         if not parts:
@@ -516,7 +534,7 @@ def _read_targets_csv(r: Reader, path: Path, frames: dict) -> list:
             for col in header:
                 if col not in CSV_COLUMNS:
                     raise CellFileError(
-                        f"unknown column {col!r}{_suggest(col, CSV_COLUMNS)}; columns: {', '.join(CSV_COLUMNS)}",
+                        f"unknown column {col!r}{suggest(col, CSV_COLUMNS)}; columns: {', '.join(CSV_COLUMNS)}",
                         file=path, item=f"row {line} (header)",
                     )
             for col in ("name", "x", "y", "z"):
@@ -576,7 +594,7 @@ def _read_targets_csv(r: Reader, path: Path, frames: dict) -> list:
             raise PoseError(exc.problem, file=path, item=item) from None
         fname = cells.get("frame", "world")
         if fname not in frames:
-            raise CellFileError(f"unknown frame {fname!r}{_suggest(fname, frames)}", file=path, item=item)
+            raise CellFileError(f"unknown frame {fname!r}{suggest(fname, frames)}", file=path, item=item)
         out.append(_target(name, frames[fname] @ pose, fname, f"{path.name} row {line}"))
     if header is None:
         r.warnings.append(f"targets file {path.name!r} is empty")
@@ -605,7 +623,7 @@ def _read_programs(r: Reader, data: dict, targets: list) -> list:
             r.check_keys(mt, MOVE_KEYS, where)
             to = r.string(mt, "to", where, required=True)
             if to not in names:
-                raise r.error(f"unknown target {to!r}{_suggest(to, names)}", where, cls=ProgramError)
+                raise r.error(f"unknown target {to!r}{suggest(to, names)}", where, cls=ProgramError)
             motion = r.string(mt, "motion", where, required=True, choices=MOTIONS)
             branch = r.string(mt, "branch", where, default=None)
             allowance = None

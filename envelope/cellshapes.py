@@ -51,7 +51,8 @@ BODY_MESH_MODEL = "convex hull"
 from it are never larger than from the mesh itself: safe)."""
 
 
-def _suggest(word: str, choices) -> str:
+def suggest(word: str, choices) -> str:
+    """A " (did you mean ...?)" hint naming the closest of ``choices`` to ``word`` (difflib), or ""."""
     close = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.6)
     return f" (did you mean {close[0]!r}?)" if close else ""
 
@@ -82,7 +83,7 @@ class Reader:
             if key not in allowed:
                 place = f" in {where}" if where else ""
                 raise self.error(
-                    f"unknown key {key!r}{place}{_suggest(key, allowed)}; allowed keys: {', '.join(allowed)}", item
+                    f"unknown key {key!r}{place}{suggest(key, allowed)}; allowed keys: {', '.join(allowed)}", item
                 )
 
     def table(self, parent: dict, key: str, item, required: bool = False) -> dict | None:
@@ -114,7 +115,7 @@ class Reader:
             raise self.error(f"key {key!r} must be a string, got {_tname(value)} {value!r}", item)
         if choices is not None and value not in choices:
             raise self.error(
-                f"key {key!r} must be one of {', '.join(map(repr, choices))}, got {value!r}{_suggest(value, choices)}",
+                f"key {key!r} must be one of {', '.join(map(repr, choices))}, got {value!r}{suggest(value, choices)}",
                 item,
             )
         return value
@@ -598,7 +599,7 @@ def generated_link_shapes(a, alpha, d, convention: str, link: int, radius: float
 
 
 __all__ = [
-    "BODY_MESH_MODEL", "BODY_SHAPES", "ZONE_SHAPES", "SHAPE_KEYS", "POSE_KEYS", "OPENING_SHAPES", "Reader",
+    "BODY_MESH_MODEL", "BODY_SHAPES", "suggest", "ZONE_SHAPES", "SHAPE_KEYS", "POSE_KEYS", "OPENING_SHAPES", "Reader",
     "read_shape", "read_shapes", "transform_shape", "load_mesh", "generated_link_shapes", "polygon_area",
     "polygon_is_convex", "polygon_is_simple", "triangulate_polygon",
 ]

@@ -234,6 +234,13 @@ def _evaluate(cell, q, *, jobs, progress, prune, chunk=256):
     return ClearanceResult.concatenate(parts), engine_for(cell, prune).pairs
 
 
+def _pair_other_name(pair) -> str:
+    """'zone/panel' for a zone pair (the panel name alone when it already names the zone)."""
+    if not pair.panel or pair.panel == pair.other:
+        return pair.other
+    return pair.panel if pair.panel.startswith(pair.other) else f"{pair.other}/{pair.panel}"
+
+
 def branch_order(sol) -> list:
     """Row order of one pose's solutions: branches by branch code, each followed by its turn variants."""
     reps = sorted((k for k in range(len(sol)) if sol.twin[k] == k), key=lambda k: (int(sol.code[k]), k))
@@ -318,7 +325,8 @@ def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True) -
                 required = float(p.required)
                 margin = dist - required
                 clearance_status = STATUS_NAMES[int(res.overall)]
-                closest_body, closest_other = p.body, p.other + (f"/{p.panel}" if p.panel else "")
+                closest_body = p.body
+                closest_other = _pair_other_name(p)
                 wb, wo = res.witness_body[worst], res.witness_other[worst]
                 if clearance_status == INTRUSION and not bool(res.depth_known[worst]):
                     notes.append("overlap, depth unknown")

@@ -480,6 +480,8 @@ class ClearanceEngine:
         self._sp_analytic = half | caps
         self._sp_cheap = np.flatnonzero(~(half | caps))
         self._pair_analytic = np.array([bool(self._sp_analytic[sps].all()) for sps in self._pair_sps], dtype=bool)
+        an_pair_ok = self._pair_analytic & ~np.array([p.allowed for p in pairs], dtype=bool)
+        self._sp_an_checked = np.flatnonzero(an_pair_ok[self._sp_pair]) if M else np.zeros(0, np.int64)
         self._pair_single = np.array([len(sps) == 1 for sps in self._pair_sps], dtype=bool)
         self._S_seg = np.array(
             [[sl.shape.p0, sl.shape.p1] if isinstance(sl.shape, g.Capsule)
@@ -583,27 +585,6 @@ class ClearanceEngine:
 
         M = len(self._sp_a)
         cheap_sp = np.full((n, M), np.inf)
-        # ---- cheap bound, convex and mesh shape pairs
-        m = self._sp_cheap
-        if m.size:
-            a, b = self._sp_a[m], self._sp_b[m]
-            d = ctr[:, b] - ctr[:, a]
-            dist = np.sqrt(_dot(d, d))
-            sphere = dist - self._S_radius[a] - self._S_radius[b]
-            u0 = _unit(d, np.array([0.0, 0.0, 1.0]))
-            ax = axes[:, b]  # (n, m, 3, 3)
-            sgn = np.sign(_dot(ax, u0[:, :, None, :]))
-            sgn = np.where(sgn == 0, 1.0, sgn)
-            U = np.concatenate([u0[:, :, None], ax * sgn[..., None]], axis=2)  # (n, m, 4, 3)
-            r_a = np.broadcast_to(self._S_r[a], (n, m.size))
-            r_b = np.broadcast_to(self._S_r[b], (n, m.size))
-            rho_a = np.broadcast_to(self._S_rho[a], (n, m.size))
-            rho_b = np.broadcast_to(self._S_rho[b], (n, m.size))
-            h_a = _outer_support(oc[:, a], ow[:, a], r_a, rho_a, zax[:, a], U)
-            h_b = _outer_support(oc[:, b], ow[:, b], r_b, rho_b, zax[:, b], -U)
-            gap = (-h_b - h_a).max(axis=-1)
-            cheap_sp[:, m] = np.maximum(sphere, gap)
-
         exact_sp = np.full((n, M), np.inf)
         upper_sp = np.full((n, M), np.inf)
         wb_sp = np.full((n, M, 3), np.nan)
@@ -644,6 +625,41 @@ class ClearanceEngine:
             wo_sp[:, m] = cb - rb[:, None] * u
         an = self._sp_analytic
         cheap_sp[:, an] = exact_sp[:, an]
+
+        # ---- cheap bound of the other shape pairs: bounding spheres, then (where it can matter) the
+        # outer-support gap along the centre direction and the other shape's axes
+        m = self._sp_cheap
+        if m.size:
+            a, b = self._sp_a[m], self._sp_b[m]
+            d = ctr[:, b] - ctr[:, a]
+            sphere = np.sqrt(_dot(d, d)) - self._S_radius[a] - self._S_radius[b]
+            cheap_sp[:, m] = sphere
+            pm = self._sp_pair[m]
+            if self.prune:
+                # a pair whose sphere margin is above max(0, the best analytic margin) is pruned
+                # whatever its tighter bound: skip computing that (it changes no status nor worst)
+                sel_an = self._sp_an_checked
+                if sel_an.size:
+                    pa_ = self._sp_pair[sel_an]
+                    s_best = (exact_sp[:, sel_an] - self._pair_pad[pa_] - self.required[pa_]).min(axis=1)
+                else:
+                    s_best = np.full(n, np.inf)
+                thr = np.maximum(s_best, 0.0)
+                need = (sphere - self._pair_pad[pm] - self.required[pm] <= thr[:, None]) & ~self.allowed[pm]
+                I, J = np.nonzero(need)
+            else:
+                I, J = np.nonzero(np.ones((n, m.size), dtype=bool))
+            if I.size:
+                aa, bb = a[J], b[J]
+                u0 = _unit(d[I, J], np.array([0.0, 0.0, 1.0]))  # (k, 3)
+                ax = axes[I, bb]  # (k, 3, 3)
+                sgn = np.sign(_dot(ax, u0[:, None, :]))
+                sgn = np.where(sgn == 0, 1.0, sgn)
+                U = np.concatenate([u0[:, None], ax * sgn[..., None]], axis=1)  # (k, 4, 3)
+                h_a = _outer_support(oc[I, aa], ow[I, aa], self._S_r[aa], self._S_rho[aa], zax[I, aa], U)
+                h_b = _outer_support(oc[I, bb], ow[I, bb], self._S_r[bb], self._S_rho[bb], zax[I, bb], -U)
+                gap = (-h_b - h_a).max(axis=-1)
+                cheap_sp[I, m[J]] = np.maximum(sphere[I, J], gap)
 
         P_ = np.arange(P)
         cheap = np.minimum.reduceat(cheap_sp, self._sp_start, axis=1) if M else np.zeros((n, 0))

@@ -4,7 +4,8 @@ This module is for *pictures* (report figures, 3-D scenes), never for clearance:
 tessellations of the solids (a sphere becomes an icosphere, a cylinder a prism) and a half-space
 becomes a finite slab clipped to the cell's extent.
 
-Lengths stay in metres here; a GLB scene is written in metres too (glTF's unit).
+Lengths stay in metres here; a GLB scene is written in metres too (glTF's unit), turned so that the
+cell's Z axis is glTF's up axis (+Y).
 
 - ``shape_mesh(shape, extent=None)``: one shape in its parent frame;
 - ``body_mesh(body)``: every shape of a body (padding applied to the primitives) in its DH frame;
@@ -45,6 +46,9 @@ ZONE_RGBA = (150, 150, 150, 90)
 """Translucent grey for zones that no pair of the row offends."""
 ZONE_OFFENDED_RGBA = (210, 30, 30, 140)
 """Translucent red for a zone that a pair of the row intrudes or is below margin of."""
+
+GLTF_FROM_CELL = np.array([[1.0, 0, 0, 0], [0, 0, 1.0, 0], [0, -1.0, 0, 0], [0, 0, 0, 1.0]])
+"""Every scene node's transform: the cell's Z-up frame turned to glTF's Y-up, (x, y, z) -> (x, z, -y)."""
 
 _SEVERITY = ("intrusion", "below margin", "allowed contact", "outside limits", "unreachable", "clear")
 
@@ -307,7 +311,8 @@ def row_scene(cell, row, *, extent=None) -> trimesh.Scene:
     Node names: ``body:<name>`` for every moving body, ``zone_node_name(zone, panel)`` for every zone
     panel. A body takes the colour of its worst pair status (``STATUS_RGBA``; the row's clearance
     status if it is in no pair); a zone panel is translucent grey, or translucent red if a pair of the
-    row intrudes it or is below its margin.
+    row intrudes it or is below its margin. Mesh vertices are in the cell frame (metres); every node's
+    transform is ``GLTF_FROM_CELL``, so that glTF viewers (Y up) show the cell's Z axis up.
     """
     if extent is None:
         extent = cell_extent(cell, qs=[row.q])
@@ -316,12 +321,17 @@ def row_scene(cell, row, *, extent=None) -> trimesh.Scene:
     for name, mesh in posed_link_meshes(cell, row.q, extent=extent).items():
         status = parts.bodies.get(name, row.clearance_status or row.status)
         rgba = STATUS_RGBA.get(status, STATUS_RGBA["clear"])
-        scene.add_geometry(_coloured(mesh, rgba, status), node_name=f"body:{name}", geom_name=f"body:{name}")
+        scene.add_geometry(
+            _coloured(mesh, rgba, status), node_name=f"body:{name}", geom_name=f"body:{name}", transform=GLTF_FROM_CELL
+        )
     for (zone, panel), mesh in zone_meshes(cell, extent).items():
         offended = parts.zones.get((zone, panel)) in ("intrusion", "below margin")
         rgba = ZONE_OFFENDED_RGBA if offended else ZONE_RGBA
         name = zone_node_name(zone, panel)
-        scene.add_geometry(_coloured(mesh, rgba, "offended zone" if offended else "zone"), node_name=name, geom_name=name)
+        scene.add_geometry(
+            _coloured(mesh, rgba, "offended zone" if offended else "zone"), node_name=name, geom_name=name,
+            transform=GLTF_FROM_CELL,
+        )
     return scene
 
 

@@ -60,14 +60,17 @@ def arm_link_meshes() -> dict:
     x = np.array([1.0, 0.0, 0.0])
     in_base = {
         0: _hull(_cylinder([0, 0, 0], [0, 0, 0.22], 0.16)),
-        1: _hull(_cylinder([0, 0, 0.22], [0, 0, 0.34], 0.14), _cylinder(shoulder - 0.12 * y, shoulder + 0.12 * y, 0.11)),
+        1: _hull(_cylinder([0, 0, 0.22], [0, 0, 0.34], 0.14),
+                 _cylinder(shoulder - 0.12 * y, shoulder + 0.12 * y, 0.11)),
         2: _hull(_cylinder(shoulder - 0.10 * y, shoulder + 0.10 * y, 0.10),
                  _cylinder(elbow - 0.09 * y, elbow + 0.09 * y, 0.085)),
         3: _hull(_cylinder(elbow - 0.08 * y, elbow + 0.08 * y, 0.08), _cylinder(forearm, forearm + 0.17 * x, 0.075)),
-        4: _hull(_cylinder(forearm + 0.17 * x, wrist - 0.02 * x, 0.065),
-                 _cylinder(wrist - 0.065 * y, wrist + 0.065 * y, 0.06)),
-        5: _hull(_cylinder(wrist - 0.05 * y, wrist + 0.05 * y, 0.05), _cylinder(wrist, flange - 0.02 * x, 0.05)),
-        6: _hull(_cylinder(flange - 0.02 * x, flange, 0.045)),
+        # the forearm tapers off 90 mm before the wrist centre; the joint 5 fork is a slim cylinder, so
+        # that the flange and tool clear it when the wrist bends (joint 5 up to about 110 deg)
+        4: _hull(_cylinder(forearm + 0.17 * x, wrist - 0.09 * x, 0.055),
+                 _cylinder(wrist - 0.06 * y, wrist + 0.06 * y, 0.042)),
+        5: _hull(_cylinder(wrist - 0.045 * y, wrist + 0.045 * y, 0.04), _cylinder(wrist, wrist + 0.06 * x, 0.04)),
+        6: _hull(_cylinder(flange - 0.008 * x, flange, 0.04)),
     }
     out = {}
     for i, mesh in in_base.items():
@@ -141,19 +144,19 @@ def _grid_solid(xs, ys, zs, empty) -> trimesh.Trimesh:
 
 
 def machine_mesh() -> trimesh.Trimesh:
-    """The machine (mm, cell frame): a 1200 x 1300 x 1900 block whose front face (x = 700) has a
-    600 x 500 door opening into a 600 deep cavity (y -300..300, z 650..1150)."""
+    """The machine (mm, cell frame): a 1200 x 1300 x 2000 block whose front face (x = 700) has a
+    600 x 500 door opening into a 600 deep cavity (y -300..300, z 800..1300)."""
     xs = [700, 1300, 1900]
     ys = [-650, -300, 300, 650]
-    zs = [0, 650, 1150, 1900]
+    zs = [0, 800, 1300, 2000]
     return _grid_solid(xs, ys, zs, empty=[(0, 1, 1)])
 
 
 def chute_mesh() -> trimesh.Trimesh:
-    """The outfeed chute (mm, cell frame): a wedge falling from z 700 at y -350 to z 450 at y -900."""
+    """The outfeed chute (mm, cell frame): a slab whose top falls from z 750 at y -350 to z 500 at y -900."""
     pts = []
     for x in (200.0, 550.0):
-        pts += [[x, -350.0, 700.0], [x, -900.0, 450.0], [x, -350.0, 400.0], [x, -900.0, 150.0]]
+        pts += [[x, -350.0, 750.0], [x, -900.0, 500.0], [x, -350.0, 450.0], [x, -900.0, 200.0]]
     return trimesh.convex.convex_hull(np.array(pts))
 
 

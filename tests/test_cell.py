@@ -215,8 +215,9 @@ xyz = [0, 0, 125]
 
 def test_link_mesh_in_metres_inside_millimetre_cell_is_its_convex_hull(tmp_path):
     # an L-shaped (non-convex) link mesh: its hull is strictly bigger, and contains every vertex
-    a = trimesh.creation.box(extents=[0.3, 0.1, 0.1], transform=trimesh.transformations.translation_matrix([0.15, 0, 0]))
-    b = trimesh.creation.box(extents=[0.1, 0.1, 0.3], transform=trimesh.transformations.translation_matrix([0, 0, 0.15]))
+    move = trimesh.transformations.translation_matrix
+    a = trimesh.creation.box(extents=[0.3, 0.1, 0.1], transform=move([0.15, 0, 0]))
+    b = trimesh.creation.box(extents=[0.1, 0.1, 0.3], transform=move([0, 0, 0.15]))
     trimesh.util.concatenate([a, b]).export(tmp_path / "ell.stl")
     (tmp_path / "ell-mm.obj").write_text(trimesh.util.concatenate([a, b]).apply_scale(1000).export(file_type="obj"))
     cell = load_cell(write_cell(tmp_path, tail="""
@@ -622,8 +623,8 @@ def test_generated_capsules_run_between_dh_frame_origins(tmp_path, convention):
 
 
 def test_padding_applies_to_every_link(tmp_path):
-    cell = load_cell(write_cell(tmp_path, base=MINIMAL.replace("capsule_radius = 50", "capsule_radius = 50\npadding = 15"),
-                                tail="""
+    padded = MINIMAL.replace("capsule_radius = 50", "capsule_radius = 50\npadding = 15")
+    cell = load_cell(write_cell(tmp_path, base=padded, tail="""
 [[arm.links]]
 link = 4
 padding = 5

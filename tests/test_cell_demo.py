@@ -31,7 +31,7 @@ def test_demo_loads_cleanly_from_another_folder(tmp_path, monkeypatch):
     assert [b.name for b in cell.bodies] == [f"link {i}" for i in range(7)] + ["gripper", "part"]
     assert {z.kind for z in cell.zones} <= set(ZONE_KINDS)
     names = {z.name for z in cell.zones}
-    assert {"floor", "north fence", "south fence", "fence door", "machine", "infeed table", "outfeed chute",
+    assert {"floor", "pedestal", "north fence", "south fence", "fence door", "machine", "infeed table", "outfeed chute",
             "operator keep-out", "load station", "cabinet"} <= names
     # every file read is recorded: the cell, the CSV and the ten meshes
     assert len(cell.inputs) == 12 and all(len(sha) == 64 for _, sha in cell.inputs)
@@ -50,7 +50,8 @@ def test_demo_arm_is_an_ortho_parallel_arm_with_about_a_metre_of_reach(demo):
     assert 0.85 < reach < 1.0
     assert arm.limits[5].tolist() == pytest.approx([-2 * math.pi, 2 * math.pi])
     np.testing.assert_allclose(demo.tool.flange_from_tcp[:3, 3], [0, 0, 0.15])
-    np.testing.assert_allclose(demo.world_from_base, np.eye(4))  # floor mount at the origin
+    np.testing.assert_allclose(demo.world_from_base[:3, :3], np.eye(3))  # floor mount: base z up
+    np.testing.assert_allclose(demo.world_from_base[:3, 3], [0, 0, 0.4])  # on the 400 mm pedestal
 
 
 def test_demo_link_meshes_follow_the_dh_links(demo):
@@ -59,7 +60,7 @@ def test_demo_link_meshes_follow_the_dh_links(demo):
     F = demo.arm.frames(np.zeros(6))
     for i in (2, 3, 4, 5):
         link = demo.links[i]
-        assert isinstance(link.shapes[0], Convex) and link.padding == pytest.approx(0.01)
+        assert isinstance(link.shapes[0], Convex) and link.padding == pytest.approx(0.005)
         world = link.shapes[0].vertices @ F[i][:3, :3].T + F[i][:3, 3]
         hull = trimesh.convex.convex_hull(world)
         mid = (F[i - 1][:3, 3] + F[i][:3, 3]) / 2
@@ -78,10 +79,10 @@ def test_demo_meshes_are_what_the_script_makes(tmp_path):
         assert mesh.is_watertight, path.name
         if path.name.startswith("demo-link"):
             assert 100 <= len(mesh.faces) <= 600, path.name
-    # the machine: a 1.2 x 1.3 x 1.9 m block with a 0.6 x 0.6 x 0.5 m cavity behind its door (mm^3)
+    # the machine: a 1.2 x 1.3 x 2.0 m block with a 0.6 x 0.6 x 0.5 m cavity behind its door (mm^3)
     machine = trimesh.load_mesh(tmp_path / "demo-machine.stl")
-    assert machine.volume == pytest.approx(1200 * 1300 * 1900 - 600 * 600 * 500)
-    assert machine.contains([[1000, 0, 900]]).tolist() == [False]  # inside the door opening
+    assert machine.volume == pytest.approx(1200 * 1300 * 2000 - 600 * 600 * 500)
+    assert machine.contains([[1000, 0, 1050]]).tolist() == [False]  # inside the door opening
 
 
 def test_demo_zone_meshes_are_watertight_solids(demo):

@@ -74,7 +74,8 @@ def test_wrong_type(tmp_path):
 
 def test_wrong_vector_length(tmp_path):
     path = write_cell(tmp_path, base=MINIMAL.replace("[arm.mount]\nxyz = [0, 0, 0]", "[arm.mount]\nxyz = [0, 0]"))
-    with pytest.raises(CellFileError, match=r"\[arm\.mount\]: key 'xyz' must be a list of 3 numbers, got a list of 2 items"):
+    msg = r"\[arm\.mount\]: key 'xyz' must be a list of 3 numbers, got a list of 2 items"
+    with pytest.raises(CellFileError, match=msg):
         load_cell(path)
 
 
@@ -141,7 +142,8 @@ def test_csv_with_a_bad_row_names_the_row(tmp_path):
 def test_csv_unknown_column(tmp_path):
     (tmp_path / "t.csv").write_text("name,x,y,z,eular_1\n")
     path = write_cell(tmp_path, top='targets_file = "t.csv"')
-    with pytest.raises(CellFileError, match=r"t\.csv: row 1 \(header\): unknown column 'eular_1'.*did you mean 'euler_1'"):
+    msg = r"t\.csv: row 1 \(header\): unknown column 'eular_1'.*did you mean 'euler_1'"
+    with pytest.raises(CellFileError, match=msg):
         load_cell(path)
 
 
@@ -163,13 +165,15 @@ def test_csv_short_row(tmp_path):
 
 def test_frame_cycle(tmp_path):
     path = write_cell(tmp_path, tail='[frames.a]\nparent = "b"\n[frames.b]\nparent = "c"\n[frames.c]\nparent = "a"\n')
-    with pytest.raises(CellFileError, match=r"frames form a cycle: (a -> b -> c -> a|b -> c -> a -> b|c -> a -> b -> c)"):
+    msg = r"frames form a cycle: (a -> b -> c -> a|b -> c -> a -> b|c -> a -> b -> c)"
+    with pytest.raises(CellFileError, match=msg):
         load_cell(path)
 
 
 def test_unknown_parent_frame(tmp_path):
     path = write_cell(tmp_path, tail='[frames.table]\nparent = "wrold"\n')
-    with pytest.raises(CellFileError, match=r"frame \"table\": unknown parent frame 'wrold' \(did you mean 'world'\?\)"):
+    msg = r"frame \"table\": unknown parent frame 'wrold' \(did you mean 'world'\?\)"
+    with pytest.raises(CellFileError, match=msg):
         load_cell(path)
 
 
@@ -227,7 +231,8 @@ def test_duplicate_names(tmp_path):
 
 def test_unknown_body_in_allowed_lists(tmp_path):
     path = write_cell(tmp_path, top='allowed_self_pairs = [["link 6", "prob"]]')
-    with pytest.raises(CellFileError, match=r"allowed_self_pairs: pair 1: unknown body 'prob' \(did you mean 'probe'\?\)"):
+    msg = r"allowed_self_pairs: pair 1: unknown body 'prob' \(did you mean 'probe'\?\)"
+    with pytest.raises(CellFileError, match=msg):
         load_cell(path)
     path = write_cell(tmp_path, base=MINIMAL.replace('allowed = ["link 0"]', 'allowed = ["link O"]'))
     with pytest.raises(CellFileError, match=r"zone \"floor\": 'allowed' names an unknown body 'link O'"):
@@ -280,7 +285,8 @@ def test_body_cannot_use_a_zone_only_shape(tmp_path):
 def test_program_unknown_target(tmp_path):
     path = write_cell(tmp_path, tail='[[targets]]\nname = "pick"\n[[programs]]\nname = "cycle"\n'
                                      'moves = [{ to = "pick", motion = "joint" }, { to = "pik", motion = "linear" }]\n')
-    with pytest.raises(ProgramError, match=r'program "cycle" move 2: unknown target \'pik\' \(did you mean \'pick\'\?\)'):
+    msg = r'program "cycle" move 2: unknown target \'pik\' \(did you mean \'pick\'\?\)'
+    with pytest.raises(ProgramError, match=msg):
         load_cell(path)
 
 

@@ -314,3 +314,18 @@ def test_motions_are_reported_when_present(result, tmp_path):
     # every embedded picture is a PNG
     for chunk in text.split('src="data:image/png;base64,')[1:]:
         assert base64.b64decode(chunk.split('"', 1)[0])[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_odd_names_and_an_empty_result(result, tmp_path):
+    import dataclasses
+
+    odd = 'cell "Süd", <1>&2'
+    row = dataclasses.replace(result.rows[1], target=odd)
+    files = write_report(dataclasses.replace(result, rows=(row,)), tmp_path / "odd", now=NOW)
+    with open(files["clearance.csv"], newline="", encoding="utf-8") as fh:
+        assert list(csv.DictReader(fh))[0]["target"] == odd
+    assert html.escape(odd) in files["report.html"].read_text(encoding="utf-8")
+    assert [n for n in files if n.endswith(".glb")] == ["worst-1-cell_S_d_1_2.glb"]
+    empty = write_report(dataclasses.replace(result, rows=()), tmp_path / "empty", now=NOW)
+    doc = _strict_json(empty["clearance.json"])
+    assert doc["rows"] == [] and doc["verdict"] == "clear" and doc["pairs"] == []

@@ -13,6 +13,7 @@ from envelope.geometry import Body, Box, Capsule, Convex, Cylinder, HalfSpace, S
 from envelope.kinematics import Arm
 from envelope.poses import pose_from_euler
 from envelope.scene import (
+    GLTF_FROM_CELL,
     SECTIONS,
     SLAB_THICKNESS,
     STATUS_RGBA,
@@ -181,7 +182,9 @@ def test_row_scene_names_colours_and_glb_round_trip(tmp_path):
     # the loaded geometry sits where it was posed
     posed = posed_link_meshes(result.cell, row.q)[row.closest_body]
     got = back.geometry[back.graph[f"body:{row.closest_body}"][1]]
-    world = trimesh.transformations.transform_points(got.vertices, back.graph[f"body:{row.closest_body}"][0])
+    gltf_from_cell = back.graph[f"body:{row.closest_body}"][0]
+    np.testing.assert_allclose(gltf_from_cell, GLTF_FROM_CELL, atol=1e-12)  # Z up in the cell -> Y up in glTF
+    world = got.vertices  # vertices stay in the cell frame
     np.testing.assert_allclose(world.min(axis=0), posed.bounds[0], atol=1e-6)
     assert glb_bytes(row_scene(result.cell, row)) == glb_bytes(row_scene(result.cell, row))
     assert io.BytesIO(path.read_bytes()).read(4) == b"glTF"

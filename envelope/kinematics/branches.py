@@ -34,33 +34,51 @@ SINGULAR_TOLS = np.array([WRIST_SINGULAR_TOL, SHOULDER_SINGULAR_TOL, ELBOW_SINGU
 
 
 def _dot(u, v):
-    return np.einsum("...i,...i->...", u, v)
+    return u[..., 0] * v[..., 0] + u[..., 1] * v[..., 1] + u[..., 2] * v[..., 2]
+
+
+def _cross(u, v):
+    u0, u1, u2 = u[..., 0], u[..., 1], u[..., 2]
+    v0, v1, v2 = v[..., 0], v[..., 1], v[..., 2]
+    return np.stack([u1 * v2 - u2 * v1, u2 * v0 - u0 * v2, u0 * v1 - u1 * v0], axis=-1)
+
+
+def _norm(u):
+    return np.sqrt(_dot(u, u))
+
+
+def arm_codes(w, o1, z1, x1, o2, z2, o3) -> np.ndarray:
+    """``(...)`` int8 shoulder/elbow part of the branch code (``4 * back + 2 * down``)."""
+    back = _dot(w - o1, x1) < 0
+    m = _cross(z2, w - o2)
+    up_dir = _dot(m, z1)
+    alt = _dot(m, x1)
+    sgn = np.where(np.abs(up_dir) > 1e-12 * (_norm(m) + 1e-300), np.sign(up_dir), np.sign(alt))
+    sgn = np.where(sgn == 0, 1.0, sgn)
+    down = sgn * _dot(o3 - o2, m) < 0
+    return (4 * back + 2 * down).astype(np.int8)
 
 
 def codes_from_geometry(w, o1, z1, x1, o2, z2, o3, wrist_sign) -> np.ndarray:
     """``(...)`` int8 branch codes from ``(..., 3)`` points/axes and the wrist triple product."""
-    back = _dot(w - o1, x1) < 0
-    u = w - o2
-    m = np.cross(z2, u)
-    up_dir = _dot(m, z1)
-    alt = _dot(m, x1)
-    sgn = np.where(np.abs(up_dir) > 1e-12 * (np.linalg.norm(m, axis=-1) + 1e-300), np.sign(up_dir), np.sign(alt))
-    sgn = np.where(sgn == 0, 1.0, sgn)
-    down = sgn * _dot(o3 - o2, m) < 0
-    neg = wrist_sign < 0
-    return (4 * back + 2 * down + neg).astype(np.int8)
+    return (arm_codes(w, o1, z1, x1, o2, z2, o3) + (wrist_sign < 0)).astype(np.int8)
 
 
-def singularity_measures(w, o1, z1, o2, z2, o3, z3, wrist_sin) -> np.ndarray:
-    """``(..., 3)``: [|det[z4 z5 z6]|, distance of w from axis 1 (m), elbow sine]."""
+def arm_measures(w, o1, z1, o2, z2, o3, z3) -> np.ndarray:
+    """``(..., 2)``: [distance of w from axis 1 (m), elbow sine]."""
     r = w - o1
-    shoulder = np.linalg.norm(r - _dot(r, z1)[..., None] * z1, axis=-1)
-    j2 = np.cross(z2, w - o2)
-    j3 = np.cross(z3, w - o3)
-    n2, n3 = np.linalg.norm(j2, axis=-1), np.linalg.norm(j3, axis=-1)
-    elbow = np.linalg.norm(np.cross(j2, j3), axis=-1) / np.maximum(n2 * n3, 1e-300)
-    elbow = np.where(n2 * n3 > 1e-300, elbow, 0.0)
-    return np.stack([np.broadcast_to(wrist_sin, shoulder.shape), shoulder, elbow], axis=-1)
+    shoulder = _norm(r - _dot(r, z1)[..., None] * z1)
+    j2 = _cross(z2, w - o2)
+    j3 = _cross(z3, w - o3)
+    n23 = _norm(j2) * _norm(j3)
+    elbow = np.where(n23 > 1e-300, _norm(_cross(j2, j3)) / np.maximum(n23, 1e-300), 0.0)
+    return np.stack([shoulder, elbow], axis=-1)
+
+
+def singularity_measures(w, o1, z1, o2, z2, o3, z3, wrist_det) -> np.ndarray:
+    """``(..., 3)``: [|det[z4 z5 z6]|, distance of w from axis 1 (m), elbow sine]."""
+    am = arm_measures(w, o1, z1, o2, z2, o3, z3)
+    return np.concatenate([np.broadcast_to(wrist_det, am.shape[:-1])[..., None], am], axis=-1)
 
 
 def place_in_limits(q: np.ndarray, limits: np.ndarray):
@@ -81,18 +99,28 @@ def place_in_limits(q: np.ndarray, limits: np.ndarray):
     excess : (..., 6) radians
         0 inside the range, else the distance of the nearest equivalent angle to the range.
     """
-    lo, hi = limits[:, 0], limits[:, 1]
     two_pi = 2.0 * np.pi
-    m_lo = np.ceil((lo - q) / two_pi - 1e-12)
-    m_hi = np.floor((hi - q) / two_pi + 1e-12)
-    within = m_lo <= m_hi
-    m0 = np.clip(np.round(-q / two_pi), m_lo, m_hi)
-    inside = np.clip(q + two_pi * m0, lo, hi)  # clip only absorbs the 1e-12 slack above
-    wrapped = np.remainder(q + np.pi, two_pi) - np.pi
-    cand = wrapped[..., None] + two_pi * np.array([-1.0, 0.0, 1.0])
-    dist = np.maximum(lo[:, None] - cand, cand - hi[:, None]).min(-1)
-    placed = np.where(within, inside, wrapped)
-    excess = np.where(within, 0.0, np.maximum(dist, 0.0))
+    placed = np.empty_like(q)
+    within = np.empty(q.shape, bool)
+    excess = np.zeros_like(q)
+    for j in range(q.shape[-1]):
+        lo, hi = limits[j]
+        x = q[..., j]
+        wrapped = np.remainder(x + np.pi, two_pi) - np.pi
+        if lo <= -np.pi and hi >= np.pi:  # the whole circle: the wrapped angle is in range, smallest
+            placed[..., j] = wrapped
+            within[..., j] = True
+            continue
+        m_lo = np.ceil((lo - wrapped) / two_pi - 1e-12)
+        m_hi = np.floor((hi - wrapped) / two_pi + 1e-12)
+        ok = m_lo <= m_hi
+        m0 = np.clip(np.round(-wrapped / two_pi), m_lo, m_hi)
+        inside = np.clip(wrapped + two_pi * m0, lo, hi)  # clip only absorbs the 1e-12 slack above
+        cand = wrapped[..., None] + two_pi * np.array([-1.0, 0.0, 1.0])
+        dist = np.maximum(lo - cand, cand - hi).min(-1)
+        placed[..., j] = np.where(ok, inside, wrapped)
+        within[..., j] = ok
+        excess[..., j] = np.where(ok, 0.0, np.maximum(dist, 0.0))
     return placed, within, excess
 
 

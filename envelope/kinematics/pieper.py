@@ -34,7 +34,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .branches import WRIST_SINGULAR_TOL, codes_from_geometry, singularity_measures
+from .branches import WRIST_SINGULAR_TOL, arm_codes, arm_measures
 from .chain import Chain, Frame, axis_frames, newton_polish, pose_error
 
 N_SLOTS = 8
@@ -164,6 +164,54 @@ def _affine_roots(k0, kc, ks):
     return np.stack([base + dt, base - dt], axis=-1), np.stack([ok, ok], axis=-1)
 
 
+def quartic_roots(b, c, d, e):
+    """Real parts and |imaginary parts| ``(n, 4)`` of the roots of monic x^4 + b x^3 + c x^2 + d x + e.
+
+    Ferrari's method (depressed quartic, largest root of the resolvent cubic by Cardano or the
+    trigonometric form, refined by Newton), in real arithmetic, vectorised. The callers refine the
+    angles further on the trigonometric polynomial itself.
+    """
+    b2 = b * b
+    p = c - 0.375 * b2
+    q = d - 0.5 * b * c + 0.125 * b2 * b
+    r = e - 0.25 * b * d + 0.0625 * b2 * c - 0.01171875 * b2 * b2
+    A2, A1, A0 = p, 0.25 * p * p - r, -0.125 * q * q
+    Q = (3 * A1 - A2 * A2) / 9.0
+    R = (9 * A2 * A1 - 27 * A0 - 2 * A2 ** 3) / 54.0
+    D = Q ** 3 + R * R
+    sq = np.sqrt(np.maximum(D, 0.0))
+    one = np.cbrt(R + sq) + np.cbrt(R - sq)
+    mQ = np.sqrt(np.maximum(-Q, 0.0))
+    th = np.arccos(np.clip(R / np.where(mQ > 0, mQ ** 3, 1.0), -1, 1))
+    m = np.where(D > 0, one, 2 * mQ * np.cos(th / 3.0)) - A2 / 3.0
+    for _ in range(2):
+        f = ((m + A2) * m + A1) * m + A0
+        df = (3 * m + 2 * A2) * m + A1
+        m = m - f / np.where(df == 0, 1.0, df)
+    m = np.maximum(m, 0.0)
+    sm = np.sqrt(2.0 * m)
+    big = sm > 1e-9 * (1 + np.abs(p))
+    qs = np.where(big, q / np.where(big, sm, 1.0), 0.0)
+    re, im = [], []
+    for s in (1.0, -1.0):
+        B = -s * sm
+        C = 0.5 * p + m + s * 0.5 * qs
+        disc = B * B - 4 * C
+        rt = np.sqrt(np.abs(disc))
+        real = disc >= 0
+        re += [np.where(real, (-B + rt) / 2, -B / 2), np.where(real, (-B - rt) / 2, -B / 2)]
+        im += [np.where(real, 0.0, rt / 2)] * 2
+    re, im = np.stack(re, -1), np.stack(im, -1)
+    if not big.all():  # biquadratic y^4 + p y^2 + r: y^2 = z, z = (-p +/- sqrt(p^2 - 4 r)) / 2
+        zb = np.sqrt((p * p - 4 * r).astype(complex))
+        z = np.stack([(-p + zb) / 2, (-p - zb) / 2], -1)
+        y = np.sqrt(z)
+        y = np.concatenate([y, -y], -1)[..., [0, 2, 1, 3]]
+        re = np.where(big[..., None], re, y.real)
+        im = np.where(big[..., None], im, np.abs(y.imag))
+    return re - 0.25 * b[..., None], im
+
+
 def _trig2_roots(k0, k1, k2, k3, k4):
     """Real roots of ``k0 + k1 cos t + k2 sin t + k3 cos 2t + k4 sin 2t`` (arrays ``(n,)``).
 
@@ -182,12 +230,8 @@ def _trig2_roots(k0, k1, k2, k3, k4):
     K3, K4 = k3 * c2b + k4 * s2b, -k3 * s2b + k4 * c2b
     c4 = k0 - K1 + K3
     coeffs = np.stack([2 * K2 - 4 * K4, 2 * k0 - 6 * K3, 2 * K2 + 4 * K4, k0 + K1 + K3], axis=-1) / c4[:, None]
-    comp = np.zeros((n, 4, 4))
-    comp[:, 1, 0] = comp[:, 2, 1] = comp[:, 3, 2] = 1.0
-    comp[:, 0, :] = -coeffs
-    roots = np.linalg.eigvals(comp)
-    tr = roots.real
-    ok = np.abs(roots.imag) * 2.0 / (1.0 + np.abs(roots) ** 2) < ROOT_IMAG_TOL
+    tr, ti = quartic_roots(coeffs[:, 0], coeffs[:, 1], coeffs[:, 2], coeffs[:, 3])
+    ok = ti * 2.0 / (1.0 + tr * tr) < ROOT_IMAG_TOL
     t = 2.0 * np.arctan(tr) + beta[:, None]
     # Newton steps on the trigonometric polynomial itself
     for _ in range(2):
@@ -209,7 +253,7 @@ def _angle2(fx, fy, tx, ty):
 class RawSolution:
     """Fixed-slot output of a solver for ``n`` poses (see ``ik.IKBatch`` for the public form)."""
 
-    q: np.ndarray  # (n, 8, 6) joint values (not yet placed in the limits)
+    q: np.ndarray  # (n, 8, 6) joint values (not wrapped, not yet placed in the limits)
     valid: np.ndarray  # (n, 8)
     wrist_centre: np.ndarray  # (n, 3) or (n, 8, 3)
     code: np.ndarray  # (n, 8) int8 branch code (branches.py)
@@ -304,13 +348,12 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
     w_arm = f.p + ch.d[4] * f.z
     werr = np.linalg.norm(w_arm - wc[:, None, :], axis=-1)
 
-    # duplicates among the arm solutions (double roots, coincident branches)
-    th = np.stack([t1, t2, t3], -1)
-    diff = th[:, :, None, :] - th[:, None, :, :]
-    same = (np.abs(np.remainder(diff + np.pi, 2 * np.pi) - np.pi) < DUPLICATE_TOL).all(-1)
-    earlier = np.tril(np.ones((4, 4), bool), -1)
-    dup = (same & earlier & ok[:, None, :]).any(-1)
-    ok = ok & ~dup
+    # duplicates among the arm solutions (double roots, coincident branches): compare cos and sin
+    cs = np.stack([np.cos(t1), np.sin(t1), c2, s2, c3, s3], -1)
+    for j in range(1, 4):
+        for k in range(j):
+            same = (np.abs(cs[:, j] - cs[:, k]) < DUPLICATE_TOL).all(-1) & ok[:, k]
+            ok[:, j] &= ~same
 
     # ---- wrist -------------------------------------------------------------------------------
     ca6, sa6 = np.cos(ch.alpha[6]), np.sin(ch.alpha[6])
@@ -358,8 +401,7 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
     theta[..., 1] = t2[..., None]
     theta[..., 2] = t3[..., None]
     theta[..., 3], theta[..., 4], theta[..., 5] = t4, t5, t6
-    q = (theta - off).reshape(n, N_SLOTS, 6)
-    q = np.remainder(q + np.pi, 2 * np.pi) - np.pi
+    q = (theta - off).reshape(n, N_SLOTS, 6)  # not wrapped: branches.place_in_limits does that
     valid = (ok[..., None] & okw2).reshape(n, N_SLOTS)
 
     # ---- polish the few that need it, then accept ----------------------------------------------
@@ -369,14 +411,17 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
         qp = newton_polish(ch, off, q[idx], T[idx[0]], iterations=4)
         _, _, F = axis_frames(ch, qp + off)
         err = np.abs(pose_error(T[idx[0]], F)).max(-1)
-        q[idx] = np.remainder(qp + np.pi, 2 * np.pi) - np.pi
+        q[idx] = qp
         valid[idx] = err < ACCEPT_TOL
 
     # ---- labels and singularity measures -------------------------------------------------------
-    rep = lambda v: np.repeat(v, 2, axis=1)  # noqa: E731  (n,4,...) -> (n,8,...)
-    wsign = (-sa4 * sa5 * np.sin(t5)).reshape(n, N_SLOTS)
-    w8 = np.broadcast_to(wc[:, None, :], (n, N_SLOTS, 3))
-    code = codes_from_geometry(w8, rep(o1), rep(z1), rep(x1), rep(o2), rep(z2), rep(o3), wsign)
-    measure = singularity_measures(w8, rep(o1), rep(z1), rep(o2), rep(z2), rep(o3), rep(z3), rep(wdet))
+    w4 = np.broadcast_to(wc[:, None, :], (n, 4, 3))
+    code4 = arm_codes(w4, o1, z1, x1, o2, z2, o3)
+    am = arm_measures(w4, o1, z1, o2, z2, o3, z3)
+    wsign = -sa4 * sa5 * np.sin(t5).reshape(n, N_SLOTS)  # (z4 x z6) . z5
+    code = (np.repeat(code4, 2, axis=1) + (wsign < 0)).astype(np.int8)
+    measure = np.empty((n, N_SLOTS, 3))
+    measure[..., 0] = np.repeat(wdet, 2, axis=1)
+    measure[..., 1:] = np.repeat(am, 2, axis=1)
     return RawSolution(q=q, valid=valid, wrist_centre=wc, code=code, measure=measure,
                        arm_found=ok.any(-1))

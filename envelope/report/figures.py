@@ -275,7 +275,10 @@ def clearance_chart(result):
     ax.set_ylabel("clearance (mm)")
     ax.set_title("Clearance per target and branch against the required clearance", fontsize=10)
     ax.grid(True, axis="y", linewidth=0.3, alpha=0.5)
-    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
+    else:
+        ax.text(0.5, 0.5, "no rows", transform=ax.transAxes, ha="center", va="center")
     fig.tight_layout()
     return fig
 

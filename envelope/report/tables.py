@@ -191,12 +191,19 @@ def pair_table(row, cache: dict | None = None) -> PairTable:
     )
 
 
-def pair_definitions(result, cache: dict | None = None) -> tuple:
-    """``(definitions, index)``: every distinct pair (in first-seen order) and ``{key: position}``."""
+def pair_definitions(result, cache: dict | None = None, statuses: list | None = None) -> tuple:
+    """``(definitions, index)``: every distinct pair (in first-seen order) and ``{key: position}``.
+
+    Every pair status met that ``statuses`` (a list) lacks is appended to it.
+    """
     defs, index = [], {}
     seen_shared: dict = {}  # id -> the shared key list itself (held, so the id stays unique)
     for row in result.rows:
         table = pair_table(row, cache)
+        if statuses is not None:
+            for st in dict.fromkeys(table.status):
+                if st not in statuses:
+                    statuses.append(st)
         if table.shared:
             if seen_shared.get(id(table.keys)) is table.keys:
                 continue  # the same shared definitions as an earlier row
@@ -318,8 +325,8 @@ def write_json(result, path, *, witnesses: str = "findings"):
     if witnesses not in WITNESSES:
         raise ValueError(f"witnesses must be one of {WITNESSES}, got {witnesses!r}")
     cache: dict = {}
-    defs, index = pair_definitions(result, cache)
     status_codes = list(PAIR_STATUS_CODES)
+    defs, index = pair_definitions(result, cache, status_codes)  # also completes status_codes
     rank = ranks(result)
     head = {
         "format": JSON_FORMAT,
@@ -339,24 +346,17 @@ def write_json(result, path, *, witnesses: str = "findings"):
         "motions": [_jsonable(m) for m in result.motions],
         "rows": _ROWS_SENTINEL,
     }
-    # row records are built first so that every pair status code is known when the header is written
-    lines = [
-        json.dumps(row_record(i, row, rank[i], index, status_codes, len(defs), witnesses, cache), sort_keys=True, separators=(",", ":"), allow_nan=False)
-        for i, row in enumerate(result.rows)
-    ]
     head["pair_status_codes"] = status_codes
     text = json.dumps(head, sort_keys=True, indent=1, allow_nan=False)
     before, after = text.split(json.dumps(_ROWS_SENTINEL), 1)
-    with AtomicWriter(path) as out:
+    n = len(result.rows)
+    with AtomicWriter(path) as out:  # rows are streamed: a big check is never held as one string
         out.write(before)
-        if lines:
-            out.write("[\n")
-            for k, line in enumerate(lines):
-                out.write(line)
-                out.write(",\n" if k + 1 < len(lines) else "\n")
-            out.write("]")
-        else:
-            out.write("[]")
+        out.write("[\n" if n else "[]")
+        for i, row in enumerate(result.rows):
+            rec = row_record(i, row, rank[i], index, status_codes, len(defs), witnesses, cache)
+            out.write(json.dumps(rec, sort_keys=True, separators=(",", ":"), allow_nan=False))
+            out.write(",\n" if i + 1 < n else "\n]")
         out.write(after)
         out.write("\n")
     return path
