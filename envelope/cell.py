@@ -23,6 +23,7 @@ from .cellshapes import (
     read_shapes,
     suggest,
     transform_shape,
+    warn_short_generated_links,
 )
 from .errors import CellFileError, InputError, PoseError, ProgramError
 from .geometry import ZONE_KINDS, Body, Zone
@@ -235,6 +236,7 @@ def _load(r: Reader, data: dict) -> Cell:
         raise r.error(f"two bodies share the name {dupes[0]!r}: link, tool and payload names must be unique",
                       "[arm]/[tool]")
     allowed_pairs = _read_self_pairs(r, data, names)
+    warn_short_generated_links(r, links, generated, allowed_pairs, self_clearance)
 
     zones, mesh_notes = _read_zones(r, data, frames, clearance, names)
     targets = _read_targets(r, data, frames)

@@ -38,7 +38,8 @@ SHAPE_KEYS = {
     "convex": ("points",) + POSE_KEYS,
     "mesh": ("file", "mesh_units") + POSE_KEYS,
     "half-space": ("point", "normal"),
-    "fence": ("points", "height", "bottom_gap", "thickness", "closed", "opening_size", "opening_shape"),
+    "fence": ("points", "height", "bottom_gap", "thickness", "closed", "opening_size", "opening_shape",
+              "opening_length"),
     "prism": ("points", "z_min", "z_max") + POSE_KEYS,
 }
 """The keys each shape kind takes, besides ``shape`` (and ``name`` inside ``parts``)."""
@@ -310,7 +311,7 @@ def load_mesh(reader: Reader, table: dict, item):
         raise reader.error(f"cannot read mesh file {name!r}: {type(exc).__name__}: {exc}", item) from None
     if not isinstance(mesh, trimesh.Trimesh) or len(mesh.faces) == 0:
         raise reader.error(f"mesh file {name!r} holds no triangles", item)
-    vertices = np.asarray(mesh.vertices, dtype=np.float64) * LENGTH_SCALE[unit]
+    vertices = to_metres(np.asarray(mesh.vertices, dtype=np.float64), unit)
     if not np.isfinite(vertices).all():
         raise reader.error(f"mesh file {name!r} has a non-finite vertex", item)
     placed = reader.pose(table, item, "mesh placement")
@@ -442,6 +443,9 @@ def read_shape(reader: Reader, table: dict, item, for_zone: bool, part: str = ""
         mesh, name = load_mesh(reader, table, where)
         info["file"] = name
         if not for_zone:
+            centred = mesh.vertices - mesh.vertices.mean(axis=0)
+            if np.linalg.matrix_rank(centred, tol=1e-9) < 3:
+                raise reader.error(f"mesh file {name!r} is flat (all in one plane): it encloses no volume", where)
             hull = mesh.convex_hull
             out = [Convex(np.asarray(hull.vertices, dtype=np.float64))]
             info["model"] = BODY_MESH_MODEL
@@ -483,10 +487,19 @@ def _read_fence(reader: Reader, table: dict, where) -> list:
             where,
         )
     attributes = {"height": float(height), "bottom_gap": float(gap), "thickness": float(thickness)}
-    if "opening_size" in table or "opening_shape" in table:
+    if any(k in table for k in ("opening_size", "opening_shape", "opening_length")):
         attributes["opening_size"] = float(L(reader.number(table, "opening_size", where, sign=">0")))
         attributes["opening_shape"] = reader.string(table, "opening_shape", where, required=True,
                                                     choices=OPENING_SHAPES)
+    if "opening_length" in table:
+        length = float(L(reader.number(table, "opening_length", where, sign=">0")))
+        if attributes["opening_shape"] != "slot":
+            raise reader.error("'opening_length' is the length of slot openings: only with opening_shape = "
+                               f"\"slot\", got {attributes['opening_shape']!r}", where)
+        if length < attributes["opening_size"]:
+            raise reader.error(f"'opening_length' {reader.show_length(length)} is shorter than the slot width "
+                               f"'opening_size' {reader.show_length(attributes['opening_size'])}", where)
+        attributes["opening_length"] = length
     ends = list(zip(pts[:-1], pts[1:]))
     if closed:
         if len(pts) < 3:
@@ -598,8 +611,32 @@ def generated_link_shapes(a, alpha, d, convention: str, link: int, radius: float
     return shapes or [Sphere(np.zeros(3), radius)]
 
 
+def warn_short_generated_links(r: Reader, links, generated, allowed_pairs, self_clearance: float) -> None:
+    """Warn where generated capsules of links i and i+2 can never be clear of each other.
+
+    Link i ends where generated link i+1 starts, and link i+2 starts where it ends, so those two
+    points are at most L apart (L: the length of link i+1's DH segments) in every configuration; when
+    L is less than both radii plus both paddings plus the self clearance, the pair is always at or
+    below its margin (at a spherical wrist L = 0: links 4 and 6 always overlap).
+    """
+    gen = set(generated)
+    for i in range(len(links) - 2):
+        a, mid, b = links[i], links[i + 1], links[i + 2]
+        if not {a.name, mid.name, b.name} <= gen or frozenset((a.name, b.name)) in allowed_pairs:
+            continue
+        length = sum(float(np.linalg.norm(s.p1 - s.p0)) for s in mid.shapes if hasattr(s, "p1"))
+        reach = a.shapes[0].radius + b.shapes[0].radius + a.padding + b.padding + self_clearance
+        if length < reach:
+            r.warnings.append(
+                f'generated capsules of "{a.name}" and "{b.name}" are never clear of each other: the '
+                f'short "{mid.name}" between them is {r.show_length(length)} long, less than their radii, '
+                f"paddings and the self clearance ({r.show_length(reach)}); give these links real "
+                "geometry or add the pair to allowed_self_pairs"
+            )
+
+
 __all__ = [
-    "BODY_MESH_MODEL", "BODY_SHAPES", "suggest", "ZONE_SHAPES", "SHAPE_KEYS", "POSE_KEYS", "OPENING_SHAPES", "Reader",
-    "read_shape", "read_shapes", "transform_shape", "load_mesh", "generated_link_shapes", "polygon_area",
-    "polygon_is_convex", "polygon_is_simple", "triangulate_polygon",
+    "BODY_MESH_MODEL", "BODY_SHAPES", "ZONE_SHAPES", "SHAPE_KEYS", "POSE_KEYS", "OPENING_SHAPES", "Reader", "suggest",
+    "read_shape", "read_shapes", "transform_shape", "load_mesh", "generated_link_shapes", "warn_short_generated_links",
+    "polygon_area", "polygon_is_convex", "polygon_is_simple", "triangulate_polygon",
 ]

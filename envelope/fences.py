@@ -38,8 +38,8 @@ import numpy as np
 from . import geometry as g
 from . import standards as st
 from .errors import InputError
-from .space import Space, box_corners
-from .units import to_mm
+from .space import Space
+from .units import to_metres, to_mm
 
 __all__ = [
     "PanelVerdict",
@@ -223,9 +223,9 @@ def evaluate_panel(space: Space, zone, panel_index: int, *, risk: str = "high") 
     b = _mm(att["height"])
     gap = _mm(att["bottom_gap"])
     thickness = _mm(att.get("thickness", float(min(shape.extents))))
-    table = st.REACH_OVER_HIGH if risk == "high" else st.REACH_OVER_LOW
     if risk not in ("high", "low"):
         raise InputError(f"expected risk 'high' or 'low', got {risk!r}", item="risk")
+    table = st.REACH_OVER_HIGH if risk == "high" else st.REACH_OVER_LOW
 
     hd = space.horizontal_distance_to_box(shape)
     d3, _ = _distance_3d(space, shape)
@@ -265,11 +265,11 @@ def evaluate_panel(space: Space, zone, panel_index: int, *, risk: str = "high") 
             governing, gov_result = lc, res
     if gov_result is not None:
         sources.update(gov_result.sources)
-    a_max = space.max_height_near(_panel_centreline(shape), to_m(reach_mm) + 0.5 * float(shape.extents[1]))
+    a_max = _highest_near(space, shape, _to_m(reach_mm))
     a_max_mm = None if a_max is None else _mm(a_max)
 
     # hazard height for reaching upwards: the lowest point of the space near the panel
-    low = _lowest_near(space, shape, to_m(reach_mm))
+    low = _lowest_near(space, shape, _to_m(reach_mm))
     upwards = None if low is None else st.reach_upwards(_mm(max(low, 0.0)), risk)
     if upwards is not None:
         sources.update(upwards.sources)
@@ -334,31 +334,28 @@ def evaluate_panel(space: Space, zone, panel_index: int, *, risk: str = "high") 
     )
 
 
-def to_m(mm) -> float:
-    return float(mm) * 1e-3
+def _to_m(mm) -> float:
+    return float(to_metres(mm, "mm"))
 
 
-def _panel_centreline(box) -> np.ndarray:
-    """``(2, 2)`` XY end points of the panel's long horizontal axis (full length)."""
-    R = box.pose[:3, :3]
-    ext = np.asarray(box.extents)
-    horizontal = [k for k in range(3) if abs(R[2, k]) < 0.5]
-    k = max(horizontal, key=lambda i: ext[i]) if horizontal else int(np.argmax(ext))
-    c = box.pose[:2, 3]
-    u = R[:2, k]
-    n = np.linalg.norm(u)
-    u = u / n if n > 0 else np.array([1.0, 0.0])
-    return np.stack([c - 0.5 * ext[k] * u, c + 0.5 * ext[k] * u])
-
-
-def _lowest_near(space: Space, box, reach) -> float | None:
-    """The bottom (m) of the lowest marked cube whose column comes within ``reach`` of the panel."""
+def _near_columns(space: Space, box, reach) -> np.ndarray:
+    """``(nx, ny)`` bool: columns whose square footprint comes within ``reach`` of the box's footprint."""
     from .space import _dist_to_polygon, box_footprint
 
     xy = space.column_centers_xy().reshape(-1, 2)
     d = _dist_to_polygon(xy, box_footprint(box)).reshape(space.occupancy.shape[:2])
-    near = d <= reach + space.pitch / math.sqrt(2.0)
-    occ = space.occupancy & near[:, :, None]
+    return d <= reach + space.pitch / math.sqrt(2.0)
+
+
+def _highest_near(space: Space, box, reach) -> float | None:
+    """The top (m) of the highest marked cube whose column comes within ``reach`` of the panel."""
+    top = np.where(_near_columns(space, box, reach), space.column_top(), -np.inf)
+    return float(top.max()) if np.isfinite(top).any() else None
+
+
+def _lowest_near(space: Space, box, reach) -> float | None:
+    """The bottom (m) of the lowest marked cube whose column comes within ``reach`` of the panel."""
+    occ = space.occupancy & _near_columns(space, box, reach)[:, :, None]
     if not occ.any():
         return None
     k = int(np.argmax(occ.any(axis=(0, 1))))

@@ -163,9 +163,9 @@ class Space:
 
         Returns
         -------
-        (k,) float64 (a float for one point). The exact distance to the union of the marked cubes
-        (checked against the nearest 8 boundary cubes; every other cube is at least as far as the 8th
-        nearest centre minus the half-diagonal), so never more than the distance to the true space.
+        (k,) float64 (a float for one point): the exact distance to the union of the marked cubes
+        (the nearest boundary cubes by a k-d tree of their centres), so never more than the distance
+        to the true space.
         """
         p, single = _promote(points)
         bidx = self.boundary_indices()
@@ -177,12 +177,23 @@ class Space:
         dist, nearest = tree.query(p, k=k)
         dist = dist.reshape(len(p), k)
         nearest = nearest.reshape(len(p), k)
-        lo = self.voxel_centers(bidx[nearest]) - 0.5 * self.pitch  # (n, k, 3)
-        gap = np.maximum(np.maximum(lo - p[:, None, :], p[:, None, :] - (lo + self.pitch)), 0.0)
-        exact = np.sqrt((gap * gap).sum(axis=2)).min(axis=1)
-        out = exact if k == len(bidx) else np.minimum(exact, np.maximum(dist[:, -1] - self.half_diagonal, 0.0))
+        out = self._cube_distance(p, bidx[nearest])
+        if k < len(bidx):
+            # a cube whose centre is farther than the k-th is at least (that - half diagonal) away;
+            # where that could be closer, look at every centre within (best + half diagonal)
+            unsure = np.flatnonzero(dist[:, -1] - self.half_diagonal < out)
+            for i in unsure:
+                near = tree.query_ball_point(p[i], out[i] + self.half_diagonal)
+                if near:
+                    out[i] = min(out[i], float(self._cube_distance(p[i:i + 1], bidx[np.array(near)][None])[0]))
         out = np.where(self.contains(p), 0.0, out)
         return float(out[0]) if single else out
+
+    def _cube_distance(self, p, idx):
+        """``(n,)`` distance from points (n, 3) to the nearest of the cubes ``idx`` (n, k, 3)."""
+        lo = self.voxel_centers(idx) - 0.5 * self.pitch
+        gap = np.maximum(np.maximum(lo - p[:, None, :], p[:, None, :] - (lo + self.pitch)), 0.0)
+        return np.sqrt((gap * gap).sum(axis=2)).min(axis=1)
 
     def _tree(self):
         if "tree" not in self._cache:
@@ -608,21 +619,13 @@ def _swept_instances(cell, limits, growth_budget, cover_excess) -> _Instances:
 
 # ====================================================================== rasterising
 def _radius_classes(radii, tol):
-    """``(labels (n,), class_radius (m,))``: greedy groups of radii within ``tol``; a class's radius
-    is the largest of its members (so using it never under-states a sphere)."""
-    order = np.argsort(radii)
-    labels = np.empty(len(radii), dtype=np.int64)
-    reps = []
-    start = None
-    for idx in order:
-        r = radii[idx]
-        if start is None or r - start > tol:
-            start = r
-            reps.append(r)
-        else:
-            reps[-1] = r
-        labels[idx] = len(reps) - 1
-    return labels, np.array(reps)
+    """``(labels (n,), class_radius (m,))``: radii grouped in bands of width ``tol``; a class's radius is
+    the largest of its members (so using it never under-states a sphere)."""
+    band = np.floor((radii - radii.min()) / tol).astype(np.int64)
+    used, labels = np.unique(band, return_inverse=True)
+    reps = np.full(len(used), -np.inf)
+    np.maximum.at(reps, labels, radii)
+    return labels.reshape(-1), reps
 
 
 def _edt(mask, spacing):
@@ -665,6 +668,7 @@ class _Meridian:
         self.bin_width = 2 * math.pi / self.nbins
         b = np.clip(((phi + math.pi) / self.bin_width).astype(np.int64), 0, self.nbins - 1)
         self.fields = {}  # (bin, class) -> (nr, nz) float32
+        self.counts = {}  # (bin, class) -> number of centres
         self.merged = {}  # class -> (nr, nz)
         key = (b * len(class_r) + labels)
         for kk in np.unique(key):
@@ -672,6 +676,7 @@ class _Meridian:
             mask = np.zeros(self.shape, dtype=bool)
             mask[ir[sel], iz[sel]] = True
             self.fields[(int(kk // len(class_r)), int(kk % len(class_r)))] = mask
+            self.counts[(int(kk // len(class_r)), int(kk % len(class_r)))] = int(sel.sum())
         for c in range(len(class_r)):
             m = np.zeros(self.shape, dtype=bool)
             for (bb, cc), mask in self.fields.items():
@@ -683,13 +688,14 @@ class _Meridian:
             self.fields[k] = _edt(self.fields[k], spacing)
         self.raster_error = 0.5 * math.sqrt(2.0) * spacing
 
-    def lookup(self, field_, rho, z):
-        """Lower bound on the meridian distance from (rho, z) to the centres of one field."""
+    def lookup(self, field_, rho, z, clamp=True):
+        """Lower bound on the meridian distance from (rho, z) to the centres of one field (clamped at 0)."""
         nr, nz = self.shape
         ir = np.clip(np.rint(rho / self.h).astype(np.int64), 0, nr - 1)
         iz = np.clip(np.rint((z - self.z0) / self.h).astype(np.int64), 0, nz - 1)
         off = np.hypot(rho - ir * self.h, z - (self.z0 + iz * self.h))
-        return np.maximum(field_[ir, iz] - off - self.raster_error, 0.0)
+        out = field_[ir, iz] - off - self.raster_error
+        return np.maximum(out, 0.0) if clamp else out
 
     def bin_arc(self, b, lo, hi):
         """(start, length) of the azimuths the centres of bin b reach over joint 1 in [lo, hi]."""
@@ -731,37 +737,53 @@ def _mark_revolved(cell, inst: _Instances, q1_lo, q1_hi, pitch, allowance, merid
     corners = np.array([[sx * reach, sy * reach, zz] for sx in (-1, 1) for sy in (-1, 1) for zz in (zlo, zhi)])
     wc = corners @ world_from_axis[:3, :3].T + world_from_axis[:3, 3]
     origin, n = _world_grid(wc.min(axis=0), wc.max(axis=0), pitch)
-    occ = np.zeros(n, dtype=bool)
     full = (q1_hi - q1_lo) >= _FULL_TURN
-    xs = origin[0] + (np.arange(n[0]) + 0.5) * pitch
-    ys = origin[1] + (np.arange(n[1]) + 0.5) * pitch
+    # one field for the full turn: min over classes of (distance to the class's centres - radius);
+    # the lookup penalty does not depend on the class, so this is the same lower bound in one gather
+    merged = None
+    for c, f in mer.merged.items():
+        merged = f - np.float32(class_r[c]) if merged is None else np.minimum(merged, f - np.float32(class_r[c]))
+    # fields of the azimuth bins, the most populated first (they mark most voxels, which then drop out)
+    order = sorted(mer.fields, key=lambda key: -mer.counts[key])
+    nx, ny, nz = n
+    xs = origin[0] + (np.arange(nx) + 0.5) * pitch
+    ys = origin[1] + (np.arange(ny) + 0.5) * pitch
     X, Y = np.meshgrid(xs, ys, indexing="ij")
-    for k in range(n[2]):
-        zc = origin[2] + (k + 0.5) * pitch
-        P = np.stack([X.ravel(), Y.ravel(), np.full(X.size, zc)], axis=1)
-        A = P @ axis_from_world[:3, :3].T + axis_from_world[:3, 3]
+    R, tr = axis_from_world[:3, :3], axis_from_world[:3, 3]
+    base = np.column_stack([X.ravel(), Y.ravel()]) @ R[:, :2].T + tr  # axis coordinates at world z = 0
+    flat = np.zeros(nx * ny * nz, dtype=bool)  # layer-major: index = k * nx * ny + xy
+    block = max(1, 2_000_000 // (nx * ny))
+    for k0 in range(0, nz, block):
+        ks = np.arange(k0, min(nz, k0 + block))
+        zc = origin[2] + (ks + 0.5) * pitch
+        A = (base[None, :, :] + zc[:, None, None] * R[:, 2][None, None, :]).reshape(-1, 3)
         prho = np.hypot(A[:, 0], A[:, 1])
         pz = A[:, 2]
-        # g = 0 bound over every centre (the full turn): a superset of the marked voxels
-        D = np.full(len(P), np.inf)
-        for c, f in mer.merged.items():
-            D = np.minimum(D, mer.lookup(f, prho, pz) - class_r[c])
-        cand = D <= thr
-        if not full and cand.any():
+        cand = mer.lookup(merged, prho, pz, clamp=False) <= thr
+        if not full:
             idx = np.flatnonzero(cand)
-            ar, az = A[idx, 0], A[idx, 1]
+            ph = np.arctan2(A[idx, 1], A[idx, 0])
             r_, z_ = prho[idx], pz[idx]
-            ph = np.arctan2(az, ar)
-            best = np.full(len(idx), np.inf)
-            for (b, c), f in mer.fields.items():
+            done = np.zeros(len(idx), dtype=bool)
+            for key in order:
+                b, c = key
+                rest = np.flatnonzero(~done)
+                if len(rest) == 0:
+                    break
                 start, length = mer.bin_arc(b, q1_lo, q1_hi)
-                gam = np.minimum(_angle_gap(ph, start, length), 0.5 * math.pi)
-                d2 = mer.lookup(f, r_ * np.cos(gam), z_)
-                best = np.minimum(best, np.hypot(r_ * np.sin(gam), d2) - class_r[c])
-            ok = np.zeros(len(P), dtype=bool)
-            ok[idx] = best <= thr
-            cand = ok
-        occ[:, :, k] = cand.reshape(n[0], n[1])
+                gam = np.minimum(_angle_gap(ph[rest], start, length), 0.5 * math.pi)
+                rr = r_[rest]
+                side = rr * np.sin(gam)
+                near = side - class_r[c] <= thr  # else this field cannot mark it
+                if not near.any():
+                    continue
+                rest, gam, rr, side = rest[near], gam[near], rr[near], side[near]
+                d2 = mer.lookup(mer.fields[key], rr * np.cos(gam), z_[rest])
+                done[rest[np.hypot(side, d2) - class_r[c] <= thr]] = True
+            cand = np.zeros(len(cand), dtype=bool)
+            cand[idx[done]] = True
+        flat[k0 * nx * ny:(ks[-1] + 1) * nx * ny] = cand
+    occ = np.ascontiguousarray(flat.reshape(nz, nx, ny).transpose(1, 2, 0))
     end_excess = mer.bin_width * reach if not full else 0.0
     return origin, occ, mer.raster_error * 2 + 0.0, end_excess, mer
 
@@ -797,9 +819,12 @@ def voxel_mesh(occupancy, origin, pitch):
             quads.append(q)
     if not quads:
         return trimesh.Trimesh()
-    Q = np.vstack(quads)  # (m, 4, 3) lattice corners
+    Q = np.vstack(quads)  # (m, 4, 3) lattice corners, 0 .. shape
     flat = Q.reshape(-1, 3)
-    verts, inv = np.unique(flat, axis=0, return_inverse=True)
+    dims = np.array(occ.shape, dtype=np.int64)  # padded shape >= unpadded shape + 1 corners
+    keys = (flat[:, 0] * dims[1] + flat[:, 1]) * dims[2] + flat[:, 2]
+    ukeys, inv = np.unique(keys, return_inverse=True)
+    verts = np.column_stack([ukeys // (dims[1] * dims[2]), (ukeys // dims[2]) % dims[1], ukeys % dims[2]])
     inv = inv.reshape(-1, 4)
     faces = np.vstack([inv[:, [0, 1, 2]], inv[:, [0, 2, 3]]])
     vertices = np.asarray(origin, dtype=np.float64) + verts.astype(np.float64) * pitch
@@ -971,7 +996,8 @@ def operating_space(cell, configurations, *, grow: float = 0.0, pitch: float = D
     if len(radii) == 0:
         raise InputError("the arm has no moving geometry (links 1..6 and tool have no shapes)", item="cell")
     W = np.asarray(cell.world_from_base, dtype=np.float64) @ cell.arm.frames(Q)  # (n, 7, 4, 4)
-    C = np.einsum("nkij,kj->nki", W[:, fr, :3, :3], local) + W[:, fr, :3, 3]
+    Wf = W[:, fr]  # (n, k, 4, 4)
+    C = np.einsum("nkij,kj->nki", Wf[..., :3, :3], local) + Wf[..., :3, 3]
     C = C.reshape(-1, 3)
     R = np.tile(radii, len(Q))
     t = 0.5 * math.sqrt(3.0) * p

@@ -24,8 +24,10 @@ angle_units = "deg"
 
 self_clearance = 10          # required gap between non-adjacent bodies of the arm and tool
 stopping_allowance = 50      # added to every required clearance while the arm moves (programs)
-# Pairs of bodies (by name) that may touch each other: not checked for self-contact.
-allowed_self_pairs = [["link 6", "tool"]]
+# Pairs of bodies (by name) that may touch each other: not checked for self-contact. Here: the
+# capsules generated for links 2 and 4 (and 4 and 6) always overlap through the short links 3 and 5
+# between them; remove these pairs once the links have real geometry.
+allowed_self_pairs = [["link 2", "link 4"], ["link 4", "link 6"]]
 # More targets, one per row (columns: docs/cell-file.md, "Targets CSV").
 targets_file = "targets.csv"
 
@@ -44,7 +46,7 @@ ceiling = 50
 [arm]
 name = "my arm"
 convention = "standard"      # DH convention: "standard" or "modified" (Craig)
-capsule_radius = 60          # links with no [[arm.links]] geometry get capsules along their DH segments
+capsule_radius = 40          # links with no [[arm.links]] geometry get capsules along their DH segments
 padding = 0                  # dress pack: inflates every link by this much
 
 # One [[arm.joints]] row per joint, 1..6: a, d (lengths); alpha, offset, min, max (angles).
@@ -71,7 +73,7 @@ alpha = -90
 d = 0
 offset = 0
 min = -120
-max = 155
+max = 145
 
 [[arm.joints]]
 a = 0
@@ -116,9 +118,9 @@ convention = "fixed-xyz"
 [tool]
 name = "tool"
 shape = "capsule"            # in the flange frame (z out of the flange)
-p0 = [0, 0, 0]
+p0 = [0, 0, 30]
 p1 = [0, 0, 150]
-radius = 40
+radius = 30
 
 [tool.tcp]                   # the TCP in the flange frame
 xyz = [0, 0, 150]
@@ -133,7 +135,7 @@ euler = [0, 0, 0]
 # ------------------------------------------------------------------ frames
 [frames.table]               # a named frame; parent defaults to "world"
 parent = "world"
-xyz = [600, 0, 700]
+xyz = [600, 0, 500]
 euler = [0, 0, 0]
 
 # ------------------------------------------------------------------ zones
@@ -143,7 +145,8 @@ kind = "floor"
 shape = "half-space"         # the solid below the plane through `point`, `normal` pointing out of it
 point = [0, 0, 0]
 normal = [0, 0, 1]
-allowed = ["link 0"]         # bodies allowed to touch this zone
+allowed = ["link 0", "link 1"]   # bodies allowed to touch this zone (the generated link 1 starts
+                                 # at the base origin, on the floor)
 
 [[zones]]
 name = "back fence"

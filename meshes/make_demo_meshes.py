@@ -66,7 +66,7 @@ def arm_link_meshes() -> dict:
                  _cylinder(elbow - 0.09 * y, elbow + 0.09 * y, 0.085)),
         3: _hull(_cylinder(elbow - 0.08 * y, elbow + 0.08 * y, 0.08), _cylinder(forearm, forearm + 0.17 * x, 0.075)),
         # the forearm tapers off 90 mm before the wrist centre; the joint 5 fork is a slim cylinder, so
-        # that the flange and tool clear it when the wrist bends (joint 5 up to about 110 deg)
+        # that the flange and tool clear it when the wrist bends
         4: _hull(_cylinder(forearm + 0.17 * x, wrist - 0.09 * x, 0.055),
                  _cylinder(wrist - 0.06 * y, wrist + 0.06 * y, 0.042)),
         5: _hull(_cylinder(wrist - 0.045 * y, wrist + 0.045 * y, 0.04), _cylinder(wrist, wrist + 0.06 * x, 0.04)),

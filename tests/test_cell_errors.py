@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
+import trimesh
 
 from envelope.cell import load_cell
 from envelope.errors import CellFileError, InputError, PoseError, ProgramError
@@ -249,6 +250,9 @@ def test_fence_problems(tmp_path):
     with pytest.raises(CellFileError, match=r"key 'opening_shape' must be one of 'slot', 'square', 'round'"):
         load_cell(write_cell(tmp_path, tail=fence.replace("[0, 0], [0, 0]", "[0, 0]")
                              + 'opening_size = 20\nopening_shape = "hexagon"\n'))
+    with pytest.raises(CellFileError, match=r"'opening_length' is the length of slot openings"):
+        load_cell(write_cell(tmp_path, tail=fence.replace("[0, 0], [0, 0]", "[0, 0]")
+                             + 'opening_size = 20\nopening_shape = "round"\nopening_length = 50\n'))
 
 
 def test_prism_problems(tmp_path):
@@ -303,3 +307,11 @@ def test_every_error_is_an_input_error_with_file_and_item(tmp_path):
         load_cell(path)
     assert info.value.file == str(path) and info.value.item == 'tool "probe"'
     assert info.value.exit_code == 2
+
+
+def test_flat_link_mesh_is_rejected(tmp_path):
+    square = trimesh.Trimesh([[0, 0, 0], [100, 0, 0], [100, 100, 0], [0, 100, 0]], [[0, 1, 2], [0, 2, 3]])
+    square.export(tmp_path / "plate.stl")
+    path = write_cell(tmp_path, tail='[[arm.links]]\nlink = 1\nshape = "mesh"\nfile = "plate.stl"\n')
+    with pytest.raises(CellFileError, match=r"link 1 \"link 1\": mesh file 'plate\.stl' is flat"):
+        load_cell(path)

@@ -72,13 +72,13 @@ def test_contains_points_matches_trimesh(kind):
     rng = np.random.default_rng(21)
     shape, mesh = _shapes(rng)[kind]
     c, r = g.bounding_sphere(shape)
-    pts = c + rng.uniform(-r, r, (500, 3))
+    pts = c + rng.uniform(-r, r, (300, 3))
     # trimesh's ray test on the watertight stand-in mesh (independent library); skip points on the facets' band
     near = np.abs(trimesh.proximity.signed_distance(mesh, pts)) < 2 * FACET_TOL[kind] + 1e-9
     ref = mesh.contains(pts)
     got = g.contains_points(shape, pts)
     assert np.array_equal(got[~near], ref[~near])
-    assert 10 < ref.sum() < 490  # both inside and outside points are tested
+    assert 10 < ref.sum() < 290  # both inside and outside points are tested
 
 
 def test_watertight_mesh_inside_and_surface_mesh():

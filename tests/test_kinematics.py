@@ -68,7 +68,14 @@ def test_fast_fk_equals_matrix_product_and_frames(convention):
     for i in range(6):  # the 4x4 matrix product of the DH links, written independently in arm.py
         T = T @ _dh_link(q[:, i] + arm.offset[i], arm.d[i], arm.a[i], arm.alpha[i], convention)
     np.testing.assert_allclose(arm.fk(q), T, atol=1e-12)
-    np.testing.assert_allclose(arm.frames(q)[:, 6], T, atol=1e-12)
+    F = arm.frames(q)
+    prefix = np.broadcast_to(np.eye(4), (200, 4, 4))
+    for i in range(6):  # every DH frame, not only the flange
+        prefix = prefix @ _dh_link(q[:, i] + arm.offset[i], arm.d[i], arm.a[i], arm.alpha[i], convention)
+        np.testing.assert_allclose(F[:, i + 1], prefix, atol=1e-12)
+    np.testing.assert_array_equal(F[:, 0], np.broadcast_to(np.eye(4), (200, 4, 4)))
+    # pytransform3d for the frames too (source: pytransform3d)
+    np.testing.assert_allclose(F[7, 6], fk_pytransform3d(arm, q[7]), atol=1e-12)
 
 
 def test_transform_facts():

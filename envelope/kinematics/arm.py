@@ -19,10 +19,12 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import InputError
-from .chain import Chain, forward
+from .chain import Chain, dh_frames, forward
 
 N_JOINTS = 6
 CONVENTIONS = ("standard", "modified")
+FK_CHUNK = 8192
+"""Configurations per vectorised pass of ``fk`` / ``frames``."""
 
 
 def _as_table_column(values, name: str) -> np.ndarray:
@@ -150,12 +152,11 @@ class Arm:
         if q.shape[-1:] != (N_JOINTS,):
             raise InputError(f"joint values must have shape (6,) or (n, 6), got {q.shape}")
         theta = q + self.offset
-        out = np.empty(q.shape[:-1] + (N_JOINTS + 1, 4, 4))
-        out[..., 0, :, :] = np.eye(4)
-        for i in range(N_JOINTS):
-            A = _dh_link(theta[..., i], self.d[i], self.a[i], self.alpha[i], self.convention)
-            out[..., i + 1, :, :] = out[..., i, :, :] @ A
-        return out
+        flat = theta.reshape(-1, N_JOINTS)
+        out = np.empty((len(flat), N_JOINTS + 1, 4, 4))
+        for i in range(0, len(flat), FK_CHUNK):  # chunks keep the temporaries in cache
+            out[i : i + FK_CHUNK] = dh_frames(self.chain, flat[i : i + FK_CHUNK], self.convention)
+        return out.reshape(q.shape[:-1] + (N_JOINTS + 1, 4, 4))
 
     def fk(self, q) -> np.ndarray:
         """Base-to-flange pose.
@@ -172,7 +173,11 @@ class Arm:
         q = np.asarray(q, dtype=np.float64)
         if q.shape[-1:] != (N_JOINTS,):
             raise InputError(f"joint values must have shape (6,) or (n, 6), got {q.shape}")
-        return forward(self.chain, q + self.offset).matrix()
+        flat = (q + self.offset).reshape(-1, N_JOINTS)
+        out = np.empty((len(flat), 4, 4))
+        for i in range(0, len(flat), FK_CHUNK):  # chunks keep the temporaries in cache
+            out[i : i + FK_CHUNK] = forward(self.chain, flat[i : i + FK_CHUNK]).matrix()
+        return out.reshape(q.shape[:-1] + (4, 4))
 
     # ------------------------------------------------------------------ inverse kinematics
     @property

@@ -106,7 +106,11 @@ def place_in_limits(q: np.ndarray, limits: np.ndarray):
     for j in range(q.shape[-1]):
         lo, hi = limits[j]
         x = q[..., j]
-        wrapped = np.remainder(x + np.pi, two_pi) - np.pi
+        if np.abs(x).max(initial=0.0) <= 3 * np.pi:  # the solvers' angles: two conditional turns suffice
+            wrapped = np.where(x > np.pi, x - two_pi, x)
+            wrapped = np.where(wrapped < -np.pi, wrapped + two_pi, wrapped)
+        else:
+            wrapped = np.remainder(x + np.pi, two_pi) - np.pi
         if lo <= -np.pi and hi >= np.pi:  # the whole circle: the wrapped angle is in range, smallest
             placed[..., j] = wrapped
             within[..., j] = True

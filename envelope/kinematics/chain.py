@@ -165,3 +165,34 @@ def newton_polish(chain: Chain, offset: np.ndarray, q: np.ndarray, target: np.nd
         A = Jt @ J + lam * np.eye(6)
         q = q + np.linalg.solve(A, (Jt @ err[..., None]))[..., 0]
     return q
+
+
+def dh_frames(chain: Chain, theta: np.ndarray, convention: str) -> np.ndarray:
+    """``(..., 7, 4, 4)`` DH frames 0..6 in the base frame for DH angles ``theta`` ``(..., 6)``.
+
+    Standard DH: frame i is the product through ``G_i``. Modified DH: frame i is ``J_i Rz(theta_i)
+    Tz(d_i)``, i.e. the product through the ``d`` part of ``G_i``.
+    """
+    shape = theta.shape[:-1]
+    out = np.zeros(shape + (7, 4, 4))
+    out[..., 3, 3] = 1.0
+    out[..., 0, :3, :3] = np.eye(3)
+    f = Frame.identity(shape).link(chain.d[0], chain.a[0], chain.alpha[0])
+    c, s = np.cos(theta), np.sin(theta)
+    for k in range(N_JOINTS):
+        f.rz(c[..., k], s[..., k])
+        if convention == "standard":
+            f.link(chain.d[k + 1], chain.a[k + 1], chain.alpha[k + 1])
+            _store(out[..., k + 1, :, :], f)
+        else:
+            f.link(chain.d[k + 1], 0.0, 0.0)
+            _store(out[..., k + 1, :, :], f)
+            f.link(0.0, chain.a[k + 1], chain.alpha[k + 1])
+    return out
+
+
+def _store(dst: np.ndarray, f: Frame) -> None:
+    dst[..., :3, 0] = f.x
+    dst[..., :3, 1] = f.y
+    dst[..., :3, 2] = f.z
+    dst[..., :3, 3] = f.p

@@ -153,12 +153,13 @@ def ik_batch(arm, base_from_flange, *, n_starts: int = 32) -> IKBatch:
     shape = T.shape[:-2]
     flat = np.ascontiguousarray(T.reshape(-1, 4, 4))
     n = len(flat)
-    q = np.full((n, N_SLOTS, 6), np.nan)
-    valid = np.zeros((n, N_SLOTS), bool)
-    within = np.zeros((n, N_SLOTS, 6), bool)
-    excess = np.zeros((n, N_SLOTS, 6))
-    code = np.full((n, N_SLOTS), -1, np.int8)
-    sing = np.zeros((n, N_SLOTS, 3), bool)
+    # every chunk fills its rows of these completely
+    q = np.empty((n, N_SLOTS, 6))
+    valid = np.empty((n, N_SLOTS), bool)
+    within = np.empty((n, N_SLOTS, 6), bool)
+    excess = np.empty((n, N_SLOTS, 6))
+    code = np.empty((n, N_SLOTS), np.int8)
+    sing = np.empty((n, N_SLOTS, 3), bool)
     method, complete, starts = ("closed-form", True, 0) if arm.spherical_wrist else ("numeric", False, n_starts)
     # chunks of poses keep the temporaries in cache (about 2x faster than one pass for 1e5 poses)
     for i in range(0, n, CHUNK):

@@ -27,33 +27,35 @@ def starts(count: int) -> np.ndarray:
 
 
 def levenberg_marquardt(chain: Chain, offset, q0: np.ndarray, target: np.ndarray, iterations: int = MAX_ITERATIONS):
-    """Vectorised LM: ``q0`` ``(..., 6)``, ``target`` ``(..., 4, 4)``; returns q and the final max error."""
-    q = q0.copy()
+    """Vectorised LM: ``q0`` ``(m, 6)``, ``target`` ``(m, 4, 4)``; returns q (wrapped) and the final max error.
+
+    Each iteration works only on the configurations not yet converged.
+    """
+    q = np.array(q0, dtype=np.float64)
+    T = np.asarray(target)
     o, z, F = axis_frames(chain, q + offset)
-    err = pose_error(target, F)
+    err = pose_error(T, F)
     cost = np.einsum("...i,...i->...", err, err)
-    lam = np.full(q.shape[:-1], 1e-3)
+    lam = np.full(len(q), 1e-3)
     eye = np.eye(6)
+    act = np.flatnonzero(cost > CONVERGED_TOL**2)
     for _ in range(iterations):
-        active = cost > CONVERGED_TOL**2
-        if not active.any():
+        if act.size == 0:
             break
-        J = jacobian(o, z, F)
+        J = jacobian(o[act], z[act], F[act])
         Jt = np.swapaxes(J, -1, -2)
-        A = Jt @ J + lam[..., None, None] * eye
-        dq = np.linalg.solve(A, (Jt @ err[..., None]))[..., 0]
-        qt = q + np.where(active[..., None], dq, 0.0)
+        A = Jt @ J + lam[act, None, None] * eye
+        dq = np.linalg.solve(A, (Jt @ err[act, :, None]))[..., 0]
+        qt = q[act] + dq
         ot, zt, Ft = axis_frames(chain, qt + offset)
-        errt = pose_error(target, Ft)
+        errt = pose_error(T[act], Ft)
         costt = np.einsum("...i,...i->...", errt, errt)
-        better = (costt < cost) & active
-        q = np.where(better[..., None], qt, q)
-        o = np.where(better[..., None, None], ot, o)
-        z = np.where(better[..., None, None], zt, z)
-        F = np.where(better[..., None, None], Ft, F)
-        err = np.where(better[..., None], errt, err)
-        cost = np.where(better, costt, cost)
-        lam = np.where(better, np.maximum(lam * 0.3, 1e-12), np.minimum(lam * 10.0, 1e6))
+        better = costt < cost[act]
+        idx = act[better]
+        q[idx], o[idx], z[idx], F[idx] = qt[better], ot[better], zt[better], Ft[better]
+        err[idx], cost[idx] = errt[better], costt[better]
+        lam[act] = np.where(better, np.maximum(lam[act] * 0.3, 1e-12), np.minimum(lam[act] * 10.0, 1e6))
+        act = act[(cost[act] > CONVERGED_TOL**2) & (lam[act] < 1e6)]
     return np.remainder(q + np.pi, 2 * np.pi) - np.pi, np.abs(err).max(-1)
 
 
@@ -66,9 +68,10 @@ def solve(chain: Chain, offset, base_from_flange: np.ndarray, n_starts: int = DE
         ``k = n_starts`` or ``slots``; valid solutions first, in order of first discovery.
     """
     n = base_from_flange.shape[0]
-    q0 = np.broadcast_to(starts(n_starts), (n, n_starts, 6))
-    T = np.broadcast_to(base_from_flange[:, None], (n, n_starts, 4, 4))
+    q0 = np.broadcast_to(starts(n_starts), (n, n_starts, 6)).reshape(-1, 6)
+    T = np.broadcast_to(base_from_flange[:, None], (n, n_starts, 4, 4)).reshape(-1, 4, 4)
     q, err = levenberg_marquardt(chain, offset, q0, T)
+    q, err = q.reshape(n, n_starts, 6), err.reshape(n, n_starts)
     ok = err < CONVERGED_TOL * 10
     diff = q[:, :, None, :] - q[:, None, :, :]
     same = (np.abs(np.remainder(diff + np.pi, 2 * np.pi) - np.pi) < DISTINCT_TOL).all(-1)

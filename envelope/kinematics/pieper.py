@@ -44,8 +44,9 @@ ROOT_IMAG_TOL = 1e-5
 """Largest imaginary part (as an angle, rad) of a quartic root still tried as a real solution."""
 CLIP_TOL = 1e-7
 """How far beyond +-1 a cosine may fall (rounding near a boundary) before the branch is dropped."""
-POLISH_TRIGGER = 1e-12
-"""Wrist-centre error (m) above which a closed-form solution gets full-pose Newton steps."""
+POLISH_TRIGGER = 1e-11
+"""Wrist-centre error (m) above which a closed-form solution gets full-pose Newton steps (the others
+already reproduce the pose to about 1e-11 m / rad, the wrist being solved exactly for their joints 1-3)."""
 ACCEPT_TOL = 1e-9
 """Largest pose error (m, and rad) of a returned solution."""
 DUPLICATE_TOL = 1e-7
@@ -215,7 +216,7 @@ def quartic_roots(b, c, d, e):
 def _trig2_roots(k0, k1, k2, k3, k4):
     """Real roots of ``k0 + k1 cos t + k2 sin t + k3 cos 2t + k4 sin 2t`` (arrays ``(n,)``).
 
-    Returns ``(n, 4)`` angles and validity. The variable is first shifted by the multiple of pi/2
+    Returns ``(n, 4)`` angles, their cosines and sines, and validity. The variable is first shifted by the multiple of pi/2
     that keeps the half-angle quartic's leading coefficient largest, so a root at t = pi is found too.
     """
     n = k0.shape[0]
@@ -224,24 +225,28 @@ def _trig2_roots(k0, k1, k2, k3, k4):
     tt = np.pi + betas
     lead = k0[:, None] + k1[:, None] * np.cos(tt) + k2[:, None] * np.sin(tt) + k3[:, None] * np.cos(2 * tt) \
         + k4[:, None] * np.sin(2 * tt)
-    beta = betas[np.argmax(np.abs(lead), axis=1)]
-    cb, sb, c2b, s2b = np.cos(beta), np.sin(beta), np.cos(2 * beta), np.sin(2 * beta)
+    pick = np.argmax(np.abs(lead), axis=1)
+    beta = betas[pick]
+    cb, sb = np.array([1.0, 0.0, -1.0, 0.0])[pick], np.array([0.0, 1.0, 0.0, -1.0])[pick]
+    c2b, s2b = np.array([1.0, -1.0, 1.0, -1.0])[pick], 0.0
     K1, K2 = k1 * cb + k2 * sb, -k1 * sb + k2 * cb
     K3, K4 = k3 * c2b + k4 * s2b, -k3 * s2b + k4 * c2b
     c4 = k0 - K1 + K3
     coeffs = np.stack([2 * K2 - 4 * K4, 2 * k0 - 6 * K3, 2 * K2 + 4 * K4, k0 + K1 + K3], axis=-1) / c4[:, None]
     tr, ti = quartic_roots(coeffs[:, 0], coeffs[:, 1], coeffs[:, 2], coeffs[:, 3])
     ok = ti * 2.0 / (1.0 + tr * tr) < ROOT_IMAG_TOL
-    t = 2.0 * np.arctan(tr) + beta[:, None]
-    # Newton steps on the trigonometric polynomial itself
+    # Newton steps on the quartic itself (Horner), then the angle and its cosine and sine by algebra
+    b, c, d, e = (coeffs[:, k, None] for k in range(4))
+    t = tr
     for _ in range(2):
-        c, s, c2, s2 = np.cos(t), np.sin(t), np.cos(2 * t), np.sin(2 * t)
-        h = k0[:, None] + k1[:, None] * c + k2[:, None] * s + k3[:, None] * c2 + k4[:, None] * s2
-        dh = -k1[:, None] * s + k2[:, None] * c - 2 * k3[:, None] * s2 + 2 * k4[:, None] * c2
-        step = np.where(np.abs(dh) > 1e-9 * (np.abs(k1) + np.abs(k2) + np.abs(k3) + np.abs(k4))[:, None],
-                        h / np.where(dh == 0, 1.0, dh), 0.0)
-        t = t - np.clip(step, -1e-3, 1e-3)
-    return t, ok
+        P = (((t + b) * t + c) * t + d) * t + e
+        dP = ((4.0 * t + 3.0 * b) * t + 2.0 * c) * t + d
+        step = np.where(np.abs(dP) > 1e-12 * (1.0 + np.abs(t)) ** 3, P / np.where(dP == 0, 1.0, dP), 0.0)
+        t = t - np.clip(step, -1e-3 * (1.0 + np.abs(t)), 1e-3 * (1.0 + np.abs(t)))
+    u = 1.0 / (1.0 + t * t)
+    cphi, sphi = (1.0 - t * t) * u, 2.0 * t * u
+    cb_, sb_ = cb[:, None], sb[:, None]
+    return 2.0 * np.arctan(t) + beta[:, None], cphi * cb_ - sphi * sb_, sphi * cb_ + cphi * sb_, ok
 
 
 def _angle2(fx, fy, tx, ty):
@@ -285,12 +290,12 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
         k1, k2 = 2 * Q01, 2 * Q02
         if model.quartic:
             ones = np.ones(n)
-            t3, ok3 = _trig2_roots(k0, k1, k2, 0.5 * (Q11 - Q22) * ones, Q12 * ones)
+            t3, c3, s3, ok3 = _trig2_roots(k0, k1, k2, 0.5 * (Q11 - Q22) * ones, Q12 * ones)
         else:
             t3, ok3 = _affine_roots(k0, k1, k2)
             t3 = np.concatenate([t3, t3], -1)[:, :4]
             ok3 = np.concatenate([ok3, np.zeros_like(ok3)], -1)
-        c3, s3 = np.cos(t3), np.sin(t3)
+            c3, s3 = np.cos(t3), np.sin(t3)
         Vx = V0[:, None, 0] + Vc[0] * c3 + Vs[0] * s3
         Vy = V0[:, None, 1] + Vc[1] * c3 + Vs[1] * s3
         Sx = S0[0] + Sc[0] * c3 + Ss[0] * s3
@@ -323,7 +328,8 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
         ok = np.repeat(ok3, 2, axis=1) & np.stack([ok2, ok2], -1).reshape(n, 4)
 
     # ---- theta1 ------------------------------------------------------------------------------
-    c3, s3 = np.cos(t3), np.sin(t3)
+    if model.mode != "general":
+        c3, s3 = np.cos(t3), np.sin(t3)
     c2, s2 = np.cos(t2), np.sin(t2)
     sx = model.s0[0] + model.sc[0] * c3 + model.ss[0] * s3
     sy = model.s0[1] + model.sc[1] * c3 + model.ss[1] * s3
@@ -408,7 +414,7 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
     need = (np.repeat(werr, 2, axis=1) > POLISH_TRIGGER) & valid
     if need.any():
         idx = np.nonzero(need)
-        qp = newton_polish(ch, off, q[idx], T[idx[0]], iterations=4)
+        qp = newton_polish(ch, off, q[idx], T[idx[0]], iterations=3)
         _, _, F = axis_frames(ch, qp + off)
         err = np.abs(pose_error(T[idx[0]], F)).max(-1)
         q[idx] = qp
