@@ -38,7 +38,7 @@ import numpy as np
 from . import geometry as g
 from . import standards as st
 from .errors import InputError
-from .space import Space
+from .space import Space, box_corners
 from .units import to_metres, to_mm
 
 __all__ = [
@@ -92,6 +92,9 @@ class PanelVerdict:
         Why, in words (every failed or flagged rule).
     b_mm, bottom_gap_mm, thickness_mm : float
         Structure height (top edge), bottom gap, thickness.
+    floor_z_mm : float
+        World z of the floor under the panel (its bottom edge less the bottom gap); every height
+        (a, the layers) is measured from it.
     risk : str
         ``"high"`` or ``"low"``: the reach-over table used.
     distance_mm : float
@@ -132,6 +135,7 @@ class PanelVerdict:
     b_mm: float
     bottom_gap_mm: float
     thickness_mm: float
+    floor_z_mm: float
     risk: str
     distance_mm: float
     distance_3d_mm: float
@@ -230,7 +234,11 @@ def evaluate_panel(space: Space, zone, panel_index: int, *, risk: str = "high") 
     hd = space.horizontal_distance_to_box(shape)
     d3, _ = _distance_3d(space, shape)
     d3_mm = _mm(max(d3, 0.0))
-    layers_z = to_mm(space.layer_bounds())
+    # heights are above the floor under the panel: the panel's bottom edge less its bottom gap
+    floor_z = float(box_corners(shape)[:, 2].min()) - float(att["bottom_gap"])
+    floor_mm = _mm(floor_z)
+    # rounded to 1e-6 mm so that a layer edge on a table row (1400.0000000000002) reads as the row
+    layers_z = np.round(to_mm(space.layer_bounds()) - floor_mm, 6)
     reasons = []
     sources = set()
 
@@ -266,11 +274,11 @@ def evaluate_panel(space: Space, zone, panel_index: int, *, risk: str = "high") 
     if gov_result is not None:
         sources.update(gov_result.sources)
     a_max = _highest_near(space, shape, _to_m(reach_mm))
-    a_max_mm = None if a_max is None else _mm(a_max)
+    a_max_mm = None if a_max is None else _mm(a_max - floor_z)
 
     # hazard height for reaching upwards: the lowest point of the space near the panel
     low = _lowest_near(space, shape, _to_m(reach_mm))
-    upwards = None if low is None else st.reach_upwards(_mm(max(low, 0.0)), risk)
+    upwards = None if low is None else st.reach_upwards(_mm(max(low - floor_z, 0.0)), risk)
     if upwards is not None:
         sources.update(upwards.sources)
 
@@ -325,7 +333,7 @@ def evaluate_panel(space: Space, zone, panel_index: int, *, risk: str = "high") 
     confidence = "U" if (risk == "high" and counts) else "H"
     return PanelVerdict(
         zone=zone.name, panel=panel, verdict=VERDICTS[verdict], reasons=tuple(reasons), b_mm=b,
-        bottom_gap_mm=gap, thickness_mm=thickness, risk=risk, distance_mm=_mm(hd.distance), distance_3d_mm=d3_mm,
+        bottom_gap_mm=gap, thickness_mm=thickness, floor_z_mm=floor_mm, risk=risk, distance_mm=_mm(hd.distance), distance_3d_mm=d3_mm,
         a_mm=None if governing is None else governing.z1_mm, a_max_mm=a_max_mm, reach_mm=reach_mm,
         c_mm=None if governing is None else governing.c_mm,
         margin_mm=None if governing is None else governing.margin_mm, reach_over=gov_result,

@@ -1049,6 +1049,10 @@ class FastBounds:
         self.S_radius = np.array([s["radius"] for s in slots])
         self.S_frame = np.array([s["frame"] for s in slots])
         self.S_moving = self.S_frame >= 0
+        outer = [_outer_box(gm, s["shape"]) for s in slots]
+        self.S_oc = np.array([o[0] for o in outer])
+        self.S_ow = np.array([o[1] for o in outer])  # (S, 3, 3): rows are half-axis vectors
+        self.S_or = np.array([o[2] for o in outer])
 
     # ------------------------------------------------------------------ posing and supports
     def _poses(self, q):
@@ -1093,6 +1097,24 @@ class FastBounds:
         d = cb - ca
         lo = np.sqrt((d * d).sum(-1)) - self.S_radius[a] - self.S_radius[b] - 1e-9
         hi = np.full(lo.shape, np.inf)
+        # support gaps of outer boxes (exact for boxes, capsules, spheres) along the centre direction
+        # and both boxes' axes: a lower bound on the distance of separated convex solids
+        cv = np.flatnonzero(~(self.sp_half | self.sp_mesh))
+        if len(cv):
+            ac, bc = a[cv], b[cv]
+            oa = np.einsum("nsij,sj->nsi", R[:, ac], self.S_oc[ac]) + t[:, ac]
+            ob = np.einsum("nsij,sj->nsi", R[:, bc], self.S_oc[bc]) + t[:, bc]
+            wa = np.einsum("nsij,skj->nski", R[:, ac], self.S_ow[ac])  # (n, m, 3, 3) world half-axes
+            wb = np.einsum("nsij,skj->nski", R[:, bc], self.S_ow[bc])
+            dc = ob - oa
+            u0 = dc / np.maximum(np.sqrt(_dot(dc, dc)), 1e-300)[..., None]
+            U = np.concatenate([u0[:, :, None], _unit_rows(wa), _unit_rows(wb)], axis=2)  # (n, m, 7, 3)
+            sg = np.sign(_dot(U, dc[:, :, None]))
+            U = U * np.where(sg == 0, 1.0, sg)[..., None]
+            ha = _dot(U, oa[:, :, None]) + np.abs(np.einsum("nmdc,nmjc->nmdj", U, wa)).sum(-1) + self.S_or[ac][None, :, None]
+            hb = -_dot(U, ob[:, :, None]) + np.abs(np.einsum("nmdc,nmjc->nmdj", U, wb)).sum(-1) + self.S_or[bc][None, :, None]
+            gap = (-hb - ha).max(axis=-1) - 1e-9
+            lo[:, cv] = np.maximum(lo[:, cv], gap)
         # half-spaces: exact
         for m in np.flatnonzero(self.sp_half):
             hs = self.slots[b[m]]["shape"]
@@ -1101,6 +1123,70 @@ class FastBounds:
             lo[:, m] = val - 1e-9
             hi[:, m] = val + 1e-9
         return R, t, lo, hi
+
+    def mesh_lower(self, R, t, items, lo):
+        """Raise ``lo`` at ``items`` (body shape against a zone mesh) to a bound the engine's value never
+        goes below: the part of its own mesh bound that does not use python-fcl (per triangle, the best
+        support gap along the triangle normal, both signs, and the direction from the body's centre,
+        or the sphere bound; the minimum over triangles). Where the body may lie inside the mesh, or
+        the mesh inside the body (the engine then reports an intrusion of unknown depth), ``lo`` is
+        set to ``-inf`` so the engine decides."""
+        from . import geometry as gm
+
+        rows, cols = items
+        for m in np.unique(cols):
+            sel = cols == m
+            r = rows[sel]
+            a, b = int(self.sp_a[m]), int(self.sp_b[m])
+            zone = self.slots[b]
+            if "tris" not in zone:
+                tris = np.asarray(zone["shape"].vertices)[np.asarray(zone["shape"].faces)]
+                nrm = np.cross(tris[:, 1] - tris[:, 0], tris[:, 2] - tris[:, 0])
+                ln = np.linalg.norm(nrm, axis=1)
+                zone["tris"] = tris
+                zone["nrm"] = np.where(ln[:, None] > 0, nrm / np.where(ln > 0, ln, 1.0)[:, None], [0.0, 0.0, 1.0])
+                zone["cen"] = tris.mean(axis=1)
+                zone["rt"] = np.sqrt(((tris - zone["cen"][:, None]) ** 2).sum(axis=2)).max(axis=1)
+            tris, nrm, cen, rt = zone["tris"], zone["nrm"], zone["cen"], zone["rt"]
+            body = self.slots[a]
+            Ra, ta = R[r, a], t[r, a]  # (k, 3, 3), (k, 3)
+            ca = np.einsum("kij,j->ki", Ra, body["center"]) + ta
+            dc = cen[None] - ca[:, None]  # (k, T, 3)
+            ndc = np.sqrt((dc * dc).sum(-1))
+            dc_u = np.where((ndc > 1e-300)[..., None], dc / np.where(ndc > 1e-300, ndc, 1.0)[..., None], [0.0, 0.0, 1.0])
+            k, T = dc.shape[:2]
+            D = np.stack([np.broadcast_to(nrm, (k, T, 3)), np.broadcast_to(-nrm, (k, T, 3)), dc_u], axis=2)  # (k, T, 3, 3)
+            local = D @ Ra[:, None]  # (k, T, 3, 3) rows: R^T u
+            V = self._V[a] if hasattr(self, "_V") else None
+            if V is None:
+                self._V, self._r = self._vertex_data()
+                V = self._V[a]
+            h_loc = (local @ V.T).max(axis=-1)
+            if self._r[a] > 0:
+                h_loc = h_loc + self._r[a]
+            h = h_loc + (D @ ta[:, None, :, None])[..., 0]
+            tri_min = (D @ np.swapaxes(tris, 1, 2)).min(axis=-1)
+            gap = (tri_min - h).max(axis=-1)  # (k, T)
+            sph = ndc - rt[None] - body["radius"]
+            bound = np.maximum(gap, sph).min(axis=1) - 1e-9
+            new = np.maximum(lo[r, m], bound)
+            pad = self.pad[m]
+            # inside tests, as the engine makes them where the bound is positive
+            test = new - pad > 0
+            if test.any() and zone["shape"].watertight:
+                ip = gm.interior_point(body["shape"])
+                pts = np.einsum("kij,j->ki", Ra[test], ip) + ta[test]
+                inside = gm.contains_points(zone["shape"], pts)
+                idx = np.flatnonzero(test)[inside]
+                new[idx] = -np.inf
+            if test.any():
+                v0 = np.asarray(zone["shape"].vertices)[0]
+                loc = np.einsum("kji,kj->ki", Ra[test], v0[None] - ta[test])
+                inside = gm.contains_points(body["shape"], loc)
+                idx = np.flatnonzero(test)[inside]
+                new[idx] = -np.inf
+            new[~test] = -np.inf  # not certified positive: the engine may report an unknown depth
+            lo[r, m] = new
 
     def _vertex_data(self):
         """Per slot: points ``(S, Vmax, 3)`` (padded by repeating the first) and a radius ``(S,)``: the
@@ -1205,6 +1291,7 @@ class FastBounds:
             z[act] = best_p
             W[act] = best_T
             U[act] = np.minimum(U[act], np.sqrt(best_n))
+        ok &= L > 0  # separated: the engine's value is then within ENGINE_EPS of the distance
         lo[rows, cols] = np.where(ok, L - ENGINE_EPS, lo[rows, cols])
         hi[rows, cols] = np.minimum(hi[rows, cols], U)
         return ok
@@ -1225,20 +1312,14 @@ class FastBounds:
             inf = np.full(N, np.inf)
             return inf, inf, np.ones(N, bool), 0
         R, t, lo_d, hi_d = self.bounds(q)
+        # the engine's value is only known not to go below these bounds for separated solids (and,
+        # for zone meshes, beyond the padding); elsewhere it is unbounded below
+        floor = np.where(self.sp_mesh, self.pad, 0.0)
+        lo_d = np.where(lo_d > floor, lo_d, -np.inf)
         off = self.pad + self.required[self.sp_pair]  # distance -> margin
         exact = np.zeros(lo_d.shape, bool)
         exact[:, self.sp_half] = True
         tried = exact.copy()
-        tried[:, self.sp_mesh] = True  # zone meshes: the engine only
-        refinable = ~(self.sp_half | self.sp_mesh)
-        # round 0: the three pairs with the smallest lower bound of every configuration
-        order = np.argsort(np.where(refinable, lo_d - off, np.inf), axis=1)[:, :3]
-        rows = np.repeat(np.arange(N), order.shape[1])
-        cols = order.ravel()
-        ok = refinable[cols]
-        rows, cols = rows[ok], cols[ok]
-        exact[rows, cols] = self.refine(R, t, (rows, cols), lo_d, hi_d, tol)
-        tried[rows, cols] = True
         engine_rows = np.zeros(N, bool)
         uniq, inv = np.unique(owner, return_inverse=True)
 
@@ -1250,24 +1331,40 @@ class FastBounds:
             np.maximum.at(best_lo, inv, W_lo)
             np.maximum.at(best_hi, inv, W_hi)
             decided = (W_lo >= 0) | (W_hi < 0)
-            value = (W_hi > best_lo[inv]) & ((best_hi - best_lo) > tol)[inv]
-            return lo_m, W_lo, W_hi, (~decided | value) & ~engine_rows
+            value = (W_hi > best_lo[inv]) & ((best_hi - best_lo) > tol)[inv] & ~engine_rows
+            # a pair needs narrowing if its lower bound is below what the configuration must show:
+            # W_hi - tol when the pose's best margin may be this configuration's, else 0 (the verdict)
+            thr = np.where(value, W_hi - tol, np.where(decided | engine_rows, -np.inf, 0.0))
+            return lo_m, thr
 
-        for _ in range(8):
-            lo_m, W_lo, W_hi, active = state()
-            if not active.any():
+        for rnd in range(12):
+            lo_m, thr = state()
+            need = (lo_m < thr[:, None]) & ~exact
+            if not need.any():
                 break
-            need = (lo_m < (W_hi - tol)[:, None]) & ~exact & active[:, None]
             blocked = (need & tried).any(axis=1)  # a mesh pair or an unconverged pair decides: engine
             engine_rows |= blocked
-            need &= ~engine_rows[:, None]
-            rows, cols = np.nonzero(need)
+            need &= ~blocked[:, None]
+            # the three lowest bounds of every configuration first: the worst pair is usually among them
+            key = np.where(need, lo_m, np.inf)
+            order = np.argsort(key, axis=1)[:, :(3 if rnd < 2 else 6 * rnd)]
+            r3 = np.repeat(np.arange(N), order.shape[1])
+            c3 = order.ravel()
+            sel = need[r3, c3]
+            rows, cols = r3[sel], c3[sel]
             if not len(rows):
                 break
-            exact[rows, cols] = self.refine(R, t, (rows, cols), lo_d, hi_d, tol)
+            mesh = self.sp_mesh[cols]
+            if mesh.any():  # zone meshes: a lower bound only (the engine decides if they still matter)
+                self.mesh_lower(R, t, (rows[mesh], cols[mesh]), lo_d)
+            if (~mesh).any():
+                exact[rows[~mesh], cols[~mesh]] = self.refine(R, t, (rows[~mesh], cols[~mesh]), lo_d, hi_d, tol)
             tried[rows, cols] = True
-        lo_m, W_lo, W_hi, active = state()
-        engine_rows |= active
+        else:
+            lo_m, thr = state()
+            engine_rows |= ((lo_m < thr[:, None]) & ~exact).any(axis=1)
+        lo_m, hi_m = lo_d - off, hi_d - off
+        W_lo, W_hi = lo_m.min(axis=1), hi_m.min(axis=1)
         clear = W_lo >= 0
         idx = np.flatnonzero(engine_rows)
         if len(idx):
@@ -1285,8 +1382,8 @@ def _closest_to_origin(T):
     are valid, else the best of the three edges (clamped segment parameters)."""
     p0, p1, p2 = T[:, 0], T[:, 1], T[:, 2]
     e1, e2 = p1 - p0, p2 - p0
-    a11, a12, a22 = (e1 * e1).sum(-1), (e1 * e2).sum(-1), (e2 * e2).sum(-1)
-    b1, b2 = -(p0 * e1).sum(-1), -(p0 * e2).sum(-1)
+    a11, a12, a22 = _dot(e1, e1), _dot(e1, e2), _dot(e2, e2)
+    b1, b2 = -_dot(p0, e1), -_dot(p0, e2)
     det = a11 * a22 - a12 * a12
     good = det > 1e-12 * np.maximum(a11 * a22, 1e-300)
     sd = np.where(good, det, 1.0)
@@ -1294,14 +1391,48 @@ def _closest_to_origin(T):
     l2 = (a11 * b2 - a12 * b1) / sd
     inside = good & (l1 >= 0) & (l2 >= 0) & (l1 + l2 <= 1)
     best = p0 + l1[:, None] * e1 + l2[:, None] * e2
-    best_n = np.where(inside, (best * best).sum(-1), np.inf)
+    best_n = np.where(inside, _dot(best, best), np.inf)
     for q0, q1 in ((p0, p1), (p0, p2), (p1, p2)):
         d = q1 - q0
-        dd = (d * d).sum(-1)
-        tt = np.clip(-(q0 * d).sum(-1) / np.where(dd > 0, dd, 1.0), 0.0, 1.0)
+        dd = _dot(d, d)
+        tt = np.clip(-_dot(q0, d) / np.where(dd > 0, dd, 1.0), 0.0, 1.0)
         c = q0 + tt[:, None] * d
-        n2 = (c * c).sum(-1)
+        n2 = _dot(c, c)
         better = n2 < best_n
         best = np.where(better[:, None], c, best)
         best_n = np.where(better, n2, best_n)
     return best
+
+
+def _dot(a, b):
+    """``a . b`` over a last axis of length 3."""
+    return a[..., 0] * b[..., 0] + a[..., 1] * b[..., 1] + a[..., 2] * b[..., 2]
+
+
+def _unit_rows(w):
+    """Rows of ``w (..., 3, 3)`` scaled to unit length (zero rows stay zero)."""
+    n = np.sqrt(_dot(w, w))
+    return w / np.where(n > 0, n, 1.0)[..., None]
+
+
+def _outer_box(gm, s):
+    """``(centre (3,), half-axes (3, 3) rows, radius)``: an outer box (inflated by the radius) of a
+    shape in its own frame; its support ``u.c + sum |u.w_j| + r|u|`` is >= the shape's."""
+    w = np.zeros((3, 3))
+    if isinstance(s, gm.Sphere):
+        return np.array(s.center), w, s.radius
+    if isinstance(s, gm.Capsule):
+        w[0] = 0.5 * (s.p1 - s.p0)
+        return 0.5 * (s.p0 + s.p1), w, s.radius
+    if isinstance(s, gm.Box):
+        return np.array(s.pose[:3, 3]), (s.pose[:3, :3] * (0.5 * s.extents)).T, 0.0
+    if isinstance(s, (gm.Convex, gm.TriMesh)):
+        v = np.asarray(s.vertices)
+        m = v.mean(axis=0)
+        _, vec = np.linalg.eigh(np.cov((v - m).T) + 1e-18 * np.eye(3))
+        proj = (v - m) @ vec
+        lo, hi = proj.min(axis=0), proj.max(axis=0)
+        c = m + vec @ (0.5 * (lo + hi))
+        half = 0.5 * (hi - lo) * (1 + 1e-9) + 1e-12
+        return c, (vec * half).T, 0.0
+    return np.zeros(3), w, np.inf  # half-spaces, cylinders: not used

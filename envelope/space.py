@@ -52,6 +52,11 @@ from .units import to_mm
 __all__ = [
     "Space",
     "SpaceFiles",
+    "HorizontalDistance",
+    "wrist_spheres",
+    "wrist_sphere",
+    "voxel_mesh",
+    "box_footprint",
     "maximum_space",
     "restricted_space",
     "operating_space",
@@ -785,7 +790,7 @@ def _mark_revolved(cell, inst: _Instances, q1_lo, q1_hi, pitch, allowance, merid
         flat[k0 * nx * ny:(ks[-1] + 1) * nx * ny] = cand
     occ = np.ascontiguousarray(flat.reshape(nz, nx, ny).transpose(1, 2, 0))
     end_excess = mer.bin_width * reach if not full else 0.0
-    return origin, occ, mer.raster_error * 2 + 0.0, end_excess, mer
+    return origin, occ, end_excess, mer
 
 
 # ====================================================================== mesh
@@ -901,10 +906,12 @@ def _swept(kind, cell, limits, allowance, pitch):
     budget = 0.5 * p
     inst = _swept_instances(cell, limits, budget, cover)
     axis_from_world, _ = _axis_frame(cell)
-    reach_guess = max(float(np.linalg.norm(inst.centres - inst.centres.mean(0), axis=1).max()), p)
-    bin_width = min(p / reach_guess, math.pi / 8)
+    axis_from_base = axis_from_world @ np.asarray(cell.world_from_base, dtype=np.float64)
+    ca = inst.centres @ axis_from_base[:3, :3].T + axis_from_base[:3, 3]
+    reach = max(float((np.hypot(ca[:, 0], ca[:, 1]) + inst.radii).max()), p)
+    bin_width = min(p / reach, math.pi / 8)  # a limited joint-1 range ends at most about p late
     class_tol = 0.25 * p
-    origin, occ, raster, end_excess, mer = _mark_revolved(
+    origin, occ, end_excess, mer = _mark_revolved(
         cell, inst, float(limits[0, 0]), float(limits[0, 1]), p, allowance, meridian, bin_width, class_tol
     )
     t = 0.5 * math.sqrt(3.0) * p

@@ -301,6 +301,13 @@ class _Cumulative:
         t = (s - self.s[k]) / (self.s[k + 1] - self.s[k])
         return self.knots[k] + t * (self.knots[k + 1] - self.knots[k])
 
+    def values(self, s) -> np.ndarray:
+        """``(k, P)`` cumulative bounds at path fractions ``s (k,)``."""
+        s = np.asarray(s, dtype=np.float64)
+        k = np.clip(np.searchsorted(self.s, s, side="right") - 1, 0, len(self.s) - 2)
+        t = ((s - self.s[k]) / (self.s[k + 1] - self.s[k]))[:, None]
+        return self.knots[k] + t * (self.knots[k + 1] - self.knots[k])
+
     def inverse(self, targets) -> np.ndarray:
         """``(P,)`` the largest s with ``L_p(s) <= targets_p`` (1 where the target is beyond the end)."""
         K = self.knots
@@ -381,7 +388,7 @@ def _certified_sweep(engine, path: _Path, required: np.ndarray, *, tol: float, b
     while True:
         keys = np.array(sorted(samples))
         D = np.array([samples[k][0] for k in keys])
-        L = np.array([cum.value(k) for k in keys])
+        L = cum.values(keys)
         Mg = np.where(active, D - required, np.inf)
         sampled_min = Mg.min() if Mg.size else np.inf
         if len(keys) < 2:
@@ -421,7 +428,7 @@ def _certified_sweep(engine, path: _Path, required: np.ndarray, *, tol: float, b
         sampled = best
         contact = bool((np.where(active, D, np.inf) <= 0).any())
         if len(keys) >= 2:
-            L = np.array([cum.value(x) for x in keys])
+            L = cum.values(keys)
             a, b, dL = D[:-1], D[1:], L[1:] - L[:-1]
             cross = 0.5 * (a + b - dL)
             lbd = np.minimum(np.minimum(a, b), cross)

@@ -24,7 +24,7 @@ L1, L2, R_CAPSULE, MOUNT_Z = 0.5, 0.3, 0.05, 1.0
 OUTER = L1 + L2 + R_CAPSULE  # 0.85 m
 
 
-def planar_cell(zones=()):
+def planar_cell(zones=(), floor=0.0):
     arm = Arm.from_dh(
         a=[0, L1, L2, 0, 0, 0], alpha=[math.pi / 2, 0, 0, 0, 0, 0], d=[0] * 6, offset=[0] * 6,
         limits=[[-1e-6, 1e-6], [-math.pi, math.pi], [-math.pi, math.pi], [-1e-6, 1e-6], [-1e-6, 1e-6],
@@ -38,15 +38,17 @@ def planar_cell(zones=()):
         Body("link 3", 3, (Capsule([-L2, 0, 0], [0, 0, 0], R_CAPSULE),)),
     ] + [Body(f"link {i}", i, (Sphere([0, 0, 0], tiny),)) for i in (4, 5, 6)]
     mount = np.eye(4)
-    mount[2, 3] = MOUNT_Z
+    mount[2, 3] = MOUNT_Z + floor
     return Cell(name="planar", arm=arm, world_from_base=mount, links=tuple(links), tool=Tool(np.eye(4), ()),
                 zones=tuple(zones))
 
 
-def panel_zone(face_x, height=2.0, bottom_gap=0.1, thickness=0.04, kind="fence", name="east fence", **extra):
-    """A fence run of one panel in the y-z plane whose face towards the arm is at x = face_x (m)."""
+def panel_zone(face_x, height=2.0, bottom_gap=0.1, thickness=0.04, kind="fence", name="east fence", floor=0.0,
+               **extra):
+    """A fence run of one panel in the y-z plane whose face towards the arm is at x = face_x (m),
+    standing on a floor at z = floor."""
     pose = np.eye(4)
-    pose[:3, 3] = [face_x + thickness / 2, 0.0, (height + bottom_gap) / 2]
+    pose[:3, 3] = [face_x + thickness / 2, 0.0, floor + (height + bottom_gap) / 2]
     box = Box([thickness, 3.0, height - bottom_gap], pose)
     att = {"height": height, "bottom_gap": bottom_gap, "thickness": thickness, **extra}
     return Zone(name, kind, (box,), 0.1, panels=(f"{name}/panel 1",), attributes=att)
@@ -94,6 +96,15 @@ def test_reach_over_verdict_flips_where_the_high_risk_table_says(space):
     assert ok.b_mm == 2000 and ok.bottom_gap_mm == pytest.approx(100) and ok.guard.passes
     assert ok.reach_mm == 600  # the largest c of the b = 2000 column (REF high-risk table)
     assert "S2" in ok.standard_sources and "S4" in ok.standard_sources
+
+
+def test_heights_are_measured_from_the_floor_under_the_panel():
+    # the same cell on a platform 0.5 m up: the same verdicts (heights are above the panel's floor)
+    raised = S.maximum_space(planar_cell(floor=0.5), pitch=0.02)
+    flip, fail, ok = _flip(raised, "high", floor=0.5)
+    truth = 1.25  # as in the test above
+    assert truth <= flip <= truth + raised.over_approximation + raised.pitch
+    assert ok.floor_z_mm == pytest.approx(500) and ok.c_mm == 500 and ok.reach_over.row_a_mm == 1600
 
 
 def test_reach_over_low_risk_is_selectable(space):

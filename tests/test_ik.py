@@ -316,3 +316,21 @@ def test_bad_input():
         arm.ik(np.stack([np.eye(4), bad]))
     with pytest.raises(InputError, match="axis 3"):
         Arm.from_dh([0, 0.5, 0, 0, 0, 0], ORTHO["alpha"], [0.4, 0, 0, 0, 0, 0.1], np.zeros(6)).ik(np.eye(4))
+
+
+def test_unreachable_wrist_orientation_reason():
+    # a spherical wrist with twists 90 and 30 deg: axis 6 keeps an angle of 60..120 deg to axis 4
+    arm = Arm.from_dh(ORTHO["a"], [-PI / 2, 0, -PI / 2, PI / 2, PI / 6, 0], ORTHO["d"], ORTHO["offset"])
+    assert arm.spherical_wrist
+    rng = np.random.default_rng(37)
+    w = np.array([0.9, 0.2, 0.8])
+    R = pose_from_euler(np.zeros(3), rng.uniform(-PI, PI, (300, 3)))
+    T = R.copy()
+    T[:, :3, 3] = w + 0.1 * R[:, :3, 2]  # same wrist centre, many orientations
+    b = arm.ik(T)
+    none = np.flatnonzero(~b.valid.any(-1))
+    assert 0 < len(none) < 300
+    res = arm.ik(T[none[0]])
+    assert len(res) == 0 and "wrist cannot reach the orientation" in res.reason
+    # independent: a many-start scipy.optimize.least_squares search (source: scipy) finds no solution either
+    assert distinct_solutions_scipy(arm, T[none[0]], 20, seed=5) == []

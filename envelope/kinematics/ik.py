@@ -113,7 +113,8 @@ class IKBatch:
     reachable : (..., ) bool
         Some valid slot lies within all joint limits.
     method, complete, starts
-        As in ``IKSolutions``. Turn variants are not enumerated here (``IKSolutions`` does it).
+        As in ``IKSolutions``. Turn variants are not enumerated here (``IKSolutions`` does it). The
+        numerical solver keeps at most 8 distinct solutions per pose here (a 6R arm can have 16).
     """
 
     q: np.ndarray
