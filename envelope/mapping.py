@@ -1365,6 +1365,7 @@ class FastBounds:
             engine_rows |= ((lo_m < thr[:, None]) & ~exact).any(axis=1)
         lo_m, hi_m = lo_d - off, hi_d - off
         W_lo, W_hi = lo_m.min(axis=1), hi_m.min(axis=1)
+        engine_rows |= (W_lo < 0) & (W_hi >= 0)  # the verdict is not decided: the engine's
         clear = W_lo >= 0
         idx = np.flatnonzero(engine_rows)
         if len(idx):

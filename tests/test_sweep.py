@@ -315,6 +315,11 @@ def test_certified_bound_never_exceeds_dense_minimum_joint_moves():
         # the dense grid's own error
         assert certified >= dense - _gap_tol(dense) - GRID, (certified, dense)
         assert row.gap >= 0
+        # without the refinement the bound comes from the advancement steps alone (the displacement
+        # bound decides it): still never above the truth
+        coarse = sweep_move(cell, q0, q1, engine=engine, bound_tol=10.0, bound_rel=0.0)
+        assert coarse.min_clearance - coarse.required <= dense + 1e-9
+        assert coarse.queries <= row.queries
         _check_status(row, dense, distance)
         n_near += abs(dense) < 0.1
         statuses.add(row.status)
@@ -363,6 +368,8 @@ def test_certified_bound_never_exceeds_dense_minimum_linear_moves():
         certified = row.min_clearance - row.required
         assert certified <= dense + 1e-9, (certified, dense)
         assert certified >= dense - _gap_tol(dense) - 2 * row.path_deviation - GRID
+        coarse = sweep_move(cell, q0, end, motion="linear", engine=engine, bound_tol=10.0, bound_rel=0.0)
+        assert coarse.min_clearance - coarse.required <= dense + 1e-9
         assert 0 <= row.path_deviation <= 5e-4
         if row.status != "outside limits":
             _check_status(row, dense, distance, slack=2 * row.path_deviation)
