@@ -22,7 +22,8 @@ count (lower than 1000 mm), is lower than 1400 mm (high risk; the guard rule), o
 120 mm; else ``"pass"``.
 
 ``crushing_points(cell, space)``: where the restricted space comes closer to a fixed object (zones of
-kinds fence, guard, fixture, machine, wall) than the ISO 13854 body gap (500 mm) without touching it.
+kinds fence, guard, fixture, machine, wall) than the ISO 13854 body gap (500 mm); where the space's
+bound cannot exclude a touch the point is kept and marked ``touches``.
 
 Values in millimetres here (the standards' numbers, names end in ``_mm``); the library geometry is
 in metres and converted once with ``envelope.units.to_mm``.
@@ -285,7 +286,7 @@ def evaluate_panel(space: Space, zone, panel_index: int, *, risk: str = "high") 
     verdict = 0
     if d3 <= 0.0:
         verdict = 2
-        reasons.append("the space touches or crosses the panel")
+        reasons.append("the space touches or crosses the panel (within the space's over-approximation)")
     if not counts:
         verdict = max(verdict, 1)
         reasons.append(f"structure {b:g} mm lower than {st.REACH_OVER_MIN_STRUCTURE_MM} mm does not count "
@@ -387,13 +388,16 @@ class CrushingPoint:
     """A gap between the restricted space and a fixed object smaller than the ISO 13854 minimum.
 
     ``gap_mm`` is a lower bound on the gap (the space is conservative); ``point_mm`` (3,) the centre
-    of the space's voxel nearest the object; ``check`` the ``CrushingGapResult``.
+    of the space's voxel nearest the object; ``check`` the ``CrushingGapResult``. ``touches`` is True
+    when the bound is 0: the space touches or overlaps the object, or leaves a gap smaller than the
+    space's ``over_approximation`` (an intrusion for the clearance check, or a crushing point).
     """
 
     zone: str
     panel: str
     kind: str
     gap_mm: float
+    touches: bool
     point_mm: tuple
     body_part: str
     check: object
@@ -402,9 +406,10 @@ class CrushingPoint:
 def crushing_points(cell, space: Space, *, body_part: str = "body", kinds=FIXED_KINDS) -> tuple:
     """Crushing points (ISO 13854): fixed objects closer to the space than the body part's gap.
 
-    A zone shape counts when its gap to the space (lower bound) is above 0 (the space does not touch
-    it: touching is an intrusion, reported by the clearance check) and below the minimum gap of
-    ``body_part`` (500 mm for the body). One ``CrushingPoint`` per zone shape.
+    A zone shape counts when its gap to the space (lower bound) is below the minimum gap of
+    ``body_part`` (500 mm for the body). A bound of 0 cannot tell a touch (an intrusion, for the
+    clearance check) from a gap smaller than the space's resolution, so it is reported too, with
+    ``touches=True`` (conservative). One ``CrushingPoint`` per zone shape.
     """
     out = []
     minimum = st.MIN_GAPS_MM.get(body_part)
@@ -415,14 +420,14 @@ def crushing_points(cell, space: Space, *, body_part: str = "body", kinds=FIXED_
             continue
         for k, shape in enumerate(zone.shapes):
             gap, at = _distance_3d(space, shape)
-            if not math.isfinite(gap) or gap <= 0.0:
+            if not math.isfinite(gap):
                 continue
-            gap_mm = _mm(gap)
+            gap_mm = _mm(max(gap, 0.0))
             check = st.crushing_gap_check(gap_mm, body_part)
             if check.crushing_point:
                 panel = zone.panels[k] if k < len(zone.panels) else zone.name
-                out.append(CrushingPoint(zone.name, panel, zone.kind, gap_mm, tuple(float(v) for v in to_mm(at)),
-                                         body_part, check))
+                out.append(CrushingPoint(zone.name, panel, zone.kind, gap_mm, gap <= 0.0,
+                                         tuple(float(v) for v in to_mm(at)), body_part, check))
     return tuple(out)
 
 

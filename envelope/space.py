@@ -758,17 +758,32 @@ def _mark_revolved(cell, inst: _Instances, q1_lo, q1_hi, pitch, allowance, merid
     base = np.column_stack([X.ravel(), Y.ravel()]) @ R[:, :2].T + tr  # axis coordinates at world z = 0
     flat = np.zeros(nx * ny * nz, dtype=bool)  # layer-major: index = k * nx * ny + xy
     block = max(1, 2_000_000 // (nx * ny))
+    nxy = nx * ny
+    vertical = abs(abs(R[2, 2]) - 1.0) < 1e-12  # joint 1's axis along world z: rho, phi per column only
+    if vertical:
+        col_rho = np.hypot(base[:, 0], base[:, 1])
+        col_phi = np.arctan2(base[:, 1], base[:, 0])
+        col_ir = np.clip(np.rint(col_rho / mer.h).astype(np.int64), 0, mer.shape[0] - 1)
+        col_dr = col_rho - col_ir * mer.h
+        block = 1
     for k0 in range(0, nz, block):
         ks = np.arange(k0, min(nz, k0 + block))
         zc = origin[2] + (ks + 0.5) * pitch
-        A = (base[None, :, :] + zc[:, None, None] * R[:, 2][None, None, :]).reshape(-1, 3)
-        prho = np.hypot(A[:, 0], A[:, 1])
-        pz = A[:, 2]
-        cand = mer.lookup(merged, prho, pz, clamp=False) <= thr
-        if not full:
+        if vertical:
+            pz0 = float(base[0, 2] + zc[0] * R[2, 2])
+            iz = int(np.clip(np.rint((pz0 - mer.z0) / mer.h), 0, mer.shape[1] - 1))
+            dz = pz0 - (mer.z0 + iz * mer.h)
+            cand = merged[col_ir, iz] - np.hypot(col_dr, dz) - mer.raster_error <= thr
             idx = np.flatnonzero(cand)
-            ph = np.arctan2(A[idx, 1], A[idx, 0])
-            r_, z_ = prho[idx], pz[idx]
+            r_, ph, z_ = col_rho[idx], col_phi[idx], np.full(len(idx), pz0)
+        else:
+            A = (base[None, :, :] + zc[:, None, None] * R[:, 2][None, None, :]).reshape(-1, 3)
+            prho = np.hypot(A[:, 0], A[:, 1])
+            pz = A[:, 2]
+            cand = mer.lookup(merged, prho, pz, clamp=False) <= thr
+            idx = np.flatnonzero(cand)
+            r_, ph, z_ = prho[idx], np.arctan2(A[idx, 1], A[idx, 0]), pz[idx]
+        if not full:
             done = np.zeros(len(idx), dtype=bool)
             for key in order:
                 b, c = key
@@ -787,7 +802,7 @@ def _mark_revolved(cell, inst: _Instances, q1_lo, q1_hi, pitch, allowance, merid
                 done[rest[np.hypot(side, d2) - class_r[c] <= thr]] = True
             cand = np.zeros(len(cand), dtype=bool)
             cand[idx[done]] = True
-        flat[k0 * nx * ny:(ks[-1] + 1) * nx * ny] = cand
+        flat[k0 * nxy:(ks[-1] + 1) * nxy] = cand
     occ = np.ascontiguousarray(flat.reshape(nz, nx, ny).transpose(1, 2, 0))
     end_excess = mer.bin_width * reach if not full else 0.0
     return origin, occ, end_excess, mer

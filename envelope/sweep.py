@@ -68,11 +68,15 @@ LINEAR_STEP = 0.01
 LINEAR_ANGLE_STEP = math.radians(2.0)
 """rad of TCP rotation between the first IK samples of a linear move."""
 LOCATE_TOL = 1e-4
-"""Path fraction to which a branch loss or leaving the reachable space is located on a linear move."""
+"""Path fraction to which leaving the reachable space is located on a linear move."""
+SINGULAR_LOCATE = 1e-7
+"""Path fraction to which a branch-label change along a linear move is located."""
+SINGULAR_MEASURE = 1e-3
+"""A label change is a singularity crossing where the measure of the changed part is below this
+(wrist sine, shoulder distance in m, elbow sine; ``IKSolutions.singular_measure``)."""
 MIN_SEGMENT = 1e-6
 """Path fraction: a linear-move segment this short whose midpoint is still off the chord is a jump."""
 
-_BIT_NAMES = ((4, "shoulder"), (2, "elbow"), (1, "wrist"))
 
 
 # ================================================================================ results
@@ -129,8 +133,9 @@ class MotionRow:
     peak_speed_ratio : float
         Peak of ``max_j |dq_j/ds|`` over ``max_j |q_end_j - q_start_j|`` (1 for a joint move).
     singular_crossed : str
-        ``"wrist"``, ``"shoulder"``, ``"elbow"`` (joined with ``+``) when a linear move cannot keep its
-        branch; ``""`` otherwise.
+        ``"wrist"``, ``"shoulder"``, ``"elbow"`` (joined with ``+``) when a linear move crosses that
+        singularity and cannot keep its branch; ``"unknown"`` when the joint path jumps without a
+        located crossing; ``""`` otherwise.
     queries : int
         Clearance evaluations (one configuration, every pair) used by the sweep.
     ik_samples : int
@@ -403,10 +408,11 @@ def _certified_sweep(engine, path: _Path, required: np.ndarray, *, tol: float, b
             break
         gap_tol = max(bound_tol, bound_rel * abs(sampled_min))
         bad = np.flatnonzero(worst_iv < sampled_min - gap_tol)
-        # an interval whose bound says "contact" while its ends do not must be resolved too
+        # an interval whose bound says "contact" while both ends are clearly apart (>= tol) is
+        # resolved too (an end within tol of contact already counts as contact)
         dlb = np.where(active, np.minimum(np.minimum(a, b), 0.5 * (a + b - dL)), np.inf)
-        contact_iv = np.flatnonzero((dlb.min(axis=1) <= 0) & (np.where(active, np.minimum(a, b), np.inf).min(axis=1) > 0)
-                                    & (keys[1:] - keys[:-1] > 1e-9))
+        ends = np.where(active, np.minimum(a, b), np.inf).min(axis=1)
+        contact_iv = np.flatnonzero((dlb.min(axis=1) <= 0) & (ends >= tol) & (keys[1:] - keys[:-1] > 1e-9))
         bad = np.union1d(bad, contact_iv)
         bad = bad[keys[bad + 1] - keys[bad] > 1e-9]
         if not bad.size:
@@ -426,7 +432,7 @@ def _certified_sweep(engine, path: _Path, required: np.ndarray, *, tol: float, b
         k, p = np.unravel_index(np.argmin(Mg), Mg.shape)
         best, pair, where = float(Mg[k, p]), int(p), float(keys[k])
         sampled = best
-        contact = bool((np.where(active, D, np.inf) <= 0).any())
+        contact = bool((np.where(active, D, np.inf) < tol).any())
         if len(keys) >= 2:
             L = cum.values(keys)
             a, b, dL = D[:-1], D[1:], L[1:] - L[:-1]
@@ -495,13 +501,25 @@ def _code_of(arm, base_from_flange, q):
     return int(sol.code[0, k]) if err[k] < 1e-5 else -1
 
 
-def _bits(c0, c1) -> str:
-    diff = int(c0) ^ int(c1)
-    return "+".join(name for bit, name in _BIT_NAMES if diff & bit)
+def _singular_measure(arm, base_from_flange, q) -> np.ndarray:
+    """``(3,)`` [wrist sine, shoulder distance (m), elbow sine] of the IK solution of one pose nearest
+    ``q`` (``IKSolutions.singular_measure``); NaN if the pose has no solution."""
+    sol = arm.ik(base_from_flange)
+    if len(sol) == 0:
+        return np.full(3, np.nan)
+    k = int(np.argmin(np.abs(_unwrap(sol.q, q) - q).max(axis=1)))
+    return np.asarray(sol.singular_measure[k], dtype=np.float64)
 
 
 def linear_path(cell, q_start, world_from_tcp_end, coef_max: np.ndarray, *, path_tol: float = PATH_TOL) -> _LinearPath:
-    """Follow the straight TCP line (orientation by slerp) from ``q_start`` in its branch.
+    """Follow the straight TCP line (orientation by slerp) continuously from ``q_start``.
+
+    At every sample the IK solution nearest the previous configuration (moved by whole turns) is
+    taken, whatever its label. Where the label changes along this continuous path, the change is
+    located to ``SINGULAR_LOCATE`` of the path fraction and the singularity measures of the changed
+    parts (``IKSolutions.singular_measure``) are read there: near zero (``SINGULAR_MEASURE``) the line
+    crosses that singularity and the branch cannot be kept; otherwise only the label convention
+    changes (the row notes it) and the path goes on.
 
     ``coef_max (6,)``: the largest point-motion bound per rad of each joint (over every pair), used to
     turn joint deviations into metres.
@@ -518,125 +536,149 @@ def linear_path(cell, q_start, world_from_tcp_end, coef_max: np.ndarray, *, path
     n = max(8, int(math.ceil(travel / LINEAR_STEP)), int(math.ceil(angle / LINEAR_ANGLE_STEP)))
     counter = [0]
 
+    def poses(s):
+        return _tcp_poses(cell, world_from_tcp0, world_from_tcp1, np.atleast_1d(np.asarray(s, dtype=np.float64)))
+
     def solve(s):
         s = np.atleast_1d(np.asarray(s, dtype=np.float64))
         counter[0] += len(s)
-        return arm.ik(_tcp_poses(cell, world_from_tcp0, world_from_tcp1, s))
+        return arm.ik(poses(s))
 
     def pick(sol, i, ref):
-        """Same-code solution of pose ``i`` nearest ``ref`` (unwrapped), or (None, nearest other code)."""
+        """Solution of pose ``i`` nearest ``ref`` (unwrapped) and its code, or (None, -1)."""
         ok = sol.valid[i]
         if not ok.any():
             return None, -1
         cand = _unwrap(np.where(ok[:, None], sol.q[i], 0.0), ref)
-        err = np.where(ok, np.abs(cand - ref).max(axis=1), np.inf)
-        same = ok & (sol.code[i] == code)
-        if same.any():
-            k = int(np.argmin(np.where(same, err, np.inf)))
-            return cand[k], int(sol.code[i, k])
-        return None, int(sol.code[i, int(np.argmin(err))])
+        k = int(np.argmin(np.where(ok, np.abs(cand - ref).max(axis=1), np.inf)))
+        return cand[k], int(sol.code[i, k])
 
     if code < 0:
         return _LinearPath(None, 0.0, -1, -1, 0.0, np.nan, "", "the start configuration has no IK branch", np.nan, "", 0)
 
+    # 1. samples along the line, continuous
     grid = np.linspace(0.0, 1.0, n + 1)
     sol = solve(grid)
-    knots_s, knots_q = [0.0], [q_start]
-    reason, singular, s_end, end_code = "", "", 1.0, code
-    lost_at = None
+    S, Q, codes = [0.0], [q_start], [code]
+    reason, singular = "", ""
+    lost = None
     for i in range(1, len(grid)):
-        qi, c = pick(sol, i, knots_q[-1])
+        qi, c = pick(sol, i, Q[-1])
         if qi is None:
-            lost_at = (i, c)
+            lost = float(grid[i])
             break
-        knots_s.append(float(grid[i]))
-        knots_q.append(qi)
-    if lost_at is not None:
-        # locate the loss between the last good sample and the first bad one
-        lo, hi = knots_s[-1], float(grid[lost_at[0]])
-        c_bad = lost_at[1]
+        S.append(float(grid[i]))
+        Q.append(qi)
+        codes.append(c)
+    if lost is not None:  # locate where the line leaves the reachable space
+        lo, hi = S[-1], lost
         while hi - lo > LOCATE_TOL:
             mid = 0.5 * (lo + hi)
-            sm = solve([mid])
-            qm, c = pick(sm, 0, knots_q[-1])
+            qm, c = pick(solve([mid]), 0, Q[-1])
             if qm is None:
-                hi, c_bad = mid, c
+                hi = mid
             else:
                 lo = mid
-                knots_s.append(mid)
-                knots_q.append(qm)
-        s_end = lo
-        if c_bad < 0:
-            reason = f"the TCP line leaves the reachable space at path fraction {hi:.4f}"
-        else:
-            singular = _bits(code, c_bad)
-            reason = (f"the branch cannot be kept: a {singular} singularity is crossed near path fraction "
-                      f"{hi:.4f} (the path continues as {BRANCH_LABELS[c_bad]})")
-            end_code = c_bad
+                S.append(mid)
+                Q.append(qm)
+                codes.append(c)
+        reason = f"the TCP line leaves the reachable space at path fraction {hi:.4f}"
 
-    # refine until the polyline follows the IK path (midpoint deviation) within path_tol; every pending
-    # segment's midpoint is solved in one batch per round
-    S, Q = list(knots_s), list(knots_q)
+    # 2. refine until the polyline follows the IK path (midpoint deviation) within path_tol; every
+    #    pending segment's midpoint is solved in one batch per round
     deviation = 0.0
     jump_at = None
-    pending = list(range(len(S) - 1))  # segment indices (into S) still to test
+    pending = list(range(len(S) - 1))
     while pending and jump_at is None:
         mids = np.array([0.5 * (S[k] + S[k + 1]) for k in pending])
         sm = solve(mids)
-        add, again = [], []
+        add, again = [], set()
         for n_, k in enumerate(pending):
             chord = 0.5 * (Q[k] + Q[k + 1])
             qm, c = pick(sm, n_, chord)
-            if qm is None:  # lost between two good samples: a narrow passage through a singularity
-                jump_at = (float(mids[n_]), c)
+            if qm is None:  # a narrow gap in the reachable space between two samples
+                jump_at = float(mids[n_])
                 break
             dev = float(coef_max @ np.abs(qm - chord))
             if dev > path_tol:
                 if S[k + 1] - S[k] < MIN_SEGMENT:
-                    jump_at = (float(mids[n_]), int(c))
+                    jump_at = float(mids[n_])
                     break
-                again.append(len(add))
+                again.add(n_)
             else:
                 deviation = max(deviation, dev)
-            add.append((float(mids[n_]), qm))
+            add.append((float(mids[n_]), qm, c))
         if jump_at is not None:
             break
-        # insert the midpoints; the segments to test again are the two halves of each rejected one
-        flag = set(again)
-        newS, newQ, newp = [S[0]], [Q[0]], []
         pos = {k: n_ for n_, k in enumerate(pending)}
+        nS, nQ, nC, nxt = [S[0]], [Q[0]], [codes[0]], []
         for k in range(len(S) - 1):
             if k in pos:
-                n_ = pos[k]
-                newS.append(add[n_][0])
-                newQ.append(add[n_][1])
-                if n_ in flag:
-                    newp += [len(newS) - 2, len(newS) - 1]
-            newS.append(S[k + 1])
-            newQ.append(Q[k + 1])
-        S, Q, pending = newS, newQ, newp
+                m_s, m_q, m_c = add[pos[k]]
+                nS.append(m_s)
+                nQ.append(m_q)
+                nC.append(m_c)
+                if pos[k] in again:
+                    nxt += [len(nS) - 2, len(nS) - 1]
+            nS.append(S[k + 1])
+            nQ.append(Q[k + 1])
+            nC.append(codes[k + 1])
+        S, Q, codes, pending = nS, nQ, nC, nxt
     if jump_at is not None:
-        s_jump, c_j = jump_at
-        keep = [i for i, x in enumerate(S) if x < s_jump]
-        S, Q = [S[i] for i in keep], [Q[i] for i in keep]
-        s_end = S[-1]
-        # the continuous continuation at the jump has another code: classify by the nearest solution
-        sj = solve([min(s_jump + 2 * MIN_SEGMENT, 1.0)])
-        ok = sj.valid[0]
-        if ok.any():
-            cand = _unwrap(np.where(ok[:, None], sj.q[0], 0.0), Q[-1])
-            kk = int(np.argmin(np.where(ok, np.abs(cand - Q[-1]).max(axis=1), np.inf)))
-            other = int(sj.code[0, kk])
-        else:
-            other = -1
-        singular = _bits(code, other) if other >= 0 and other != code else "wrist"
-        end_code = other if other >= 0 else code
-        reason = (f"the branch cannot be kept: the joint path jumps at path fraction {s_jump:.4f} "
-                  f"({singular} singularity)")
+        keep = [i for i, x in enumerate(S) if x < jump_at]
+        S, Q, codes = [S[i] for i in keep], [Q[i] for i in keep], [codes[i] for i in keep]
+        reason = (f"the joint path jumps at path fraction {jump_at:.4f} (no continuous IK path: the "
+                  "line passes through a singular or unreachable pose)")
+        singular = "unknown"
+
+    # 3. label changes along the continuous path: a singularity crossed, or only the label convention
+    notes = []
+    k = 1
+    cur = codes[0]
+    while k < len(S):
+        if codes[k] == cur:
+            k += 1
+            continue
+        lo, hi, q_lo, q_hi, c_hi = S[k - 1], S[k], Q[k - 1], Q[k], codes[k]
+        while hi - lo > SINGULAR_LOCATE:
+            mid = 0.5 * (lo + hi)
+            qm, c = pick(solve([mid]), 0, 0.5 * (q_lo + q_hi))
+            if qm is None:
+                break
+            if c == cur:
+                lo, q_lo = mid, qm
+            else:
+                hi, q_hi, c_hi = mid, qm, c
+        flipped = int(cur) ^ int(c_hi)
+        m_lo = _singular_measure(arm, poses(lo)[0], q_lo)
+        m_hi = _singular_measure(arm, poses(hi)[0], q_hi)
+        measure = np.fmin(m_lo, m_hi)  # [wrist sine, shoulder distance, elbow sine]
+        crossed = [name for bit, name, m in ((4, "shoulder", measure[1]), (2, "elbow", measure[2]),
+                                              (1, "wrist", measure[0])) if flipped & bit and m < SINGULAR_MEASURE]
+        if crossed:
+            singular = "+".join(crossed)
+            reason = (f"the branch cannot be kept: a {singular} singularity is crossed at path fraction "
+                      f"{hi:.4f} (the path continues as {BRANCH_LABELS[c_hi]})")
+            keep = [i for i, x in enumerate(S) if x <= lo]
+            S, Q, codes = [S[i] for i in keep], [Q[i] for i in keep], [codes[i] for i in keep]
+            if S[-1] < lo:
+                S.append(lo)
+                Q.append(q_lo)
+                codes.append(cur)
+            cur = c_hi
+            break
+        notes.append(f"the branch label changes from {BRANCH_LABELS[cur]} to {BRANCH_LABELS[c_hi]} at path "
+                     f"fraction {hi:.4f} without a singularity (label convention)")
+        cur = c_hi
+        k += 1
+    end_code = cur
+    if notes:
+        reason = "; ".join([r for r in (reason,) if r] + notes)
+
     S, Q = np.array(S), np.array(Q).reshape(-1, 6)
+    s_end = float(S[-1]) if (lost is not None or jump_at is not None or singular) else 1.0
     if len(S) < 2:
         return _LinearPath(None, s_end, code, end_code, deviation, np.nan, singular, reason, np.nan, "", counter[0])
-    # rescale to a path over [0, s_end] -> the polyline is kept in the move's own path fraction
     speed = (np.abs(np.diff(Q, axis=0)) / np.diff(S)[:, None]).max(axis=1)
     straight = float(np.abs(Q[-1] - Q[0]).max() / max(S[-1] - S[0], 1e-300))
     peak = float(speed.max() / straight) if straight > 1e-9 else float(speed.max() / max(speed[0], speed[-1], 1e-12))
@@ -658,7 +700,7 @@ def linear_path(cell, q_start, world_from_tcp_end, coef_max: np.ndarray, *, path
         limit_note = (f"joint {j + 1} leaves its range at path fraction {limit_s:.4f}; joint {jw + 1} is up to "
                       f"{np.degrees(worst[jw]):.3f} deg outside [{np.degrees(lo_l[jw]):.3f}, "
                       f"{np.degrees(hi_l[jw]):.3f}] deg")
-    return _LinearPath(_Path(S, Q), float(S[-1]), code, end_code, deviation, peak, singular, reason, limit_s,
+    return _LinearPath(_Path(S, Q), s_end, code, end_code, deviation, peak, singular, reason, limit_s,
                        limit_note, counter[0])
 
 
@@ -932,7 +974,7 @@ def run_sweep(cell, program=None, *, engine=None, tol: float = TOL, bound_tol: f
                     elif row.status == OUTSIDE_LIMITS or (row.status != UNREACHABLE and np.isfinite(row.limit_violation)):
                         stopped = f"not run: move {m} leaves the joint limits"
                     else:
-                        q = row.q_end
+                        q, label = row.q_end, row.end_branch
                     continue
                 tsol = solutions(mv.to)
                 cand = [k for k in range(len(tsol)) if tsol.labels[k] == want]

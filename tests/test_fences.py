@@ -173,8 +173,10 @@ def test_crushing_point_300_flagged_600_not(space):
     assert p.check.min_gap_mm == 500 and p.check.crushing_point
     # where: the space's voxel nearest the fixture, near (850, 0, 1000) mm
     assert np.allclose(p.point_mm, [850, 0, 1000], atol=space.over_approximation * 1e3 + 20)
-    # touching is not a crushing gap (it is an intrusion for the clearance check)
-    assert F.crushing_points(planar_cell([_fixture(0.6)]), space) == ()
+    assert not p.touches
+    # a fixture the space overlaps: kept, marked as touching (intrusion or a gap below the resolution)
+    (touch,) = F.crushing_points(planar_cell([_fixture(0.6)]), space)
+    assert touch.touches and touch.gap_mm == 0
     # another body part: the hand (100 mm, REF) does not fit a check of 300 mm
     assert F.crushing_points(cell, space, body_part="hand") == ()
 

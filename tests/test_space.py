@@ -325,3 +325,22 @@ def test_tilted_mount_limited_joint_1_with_allowance_no_sampled_point_outside():
     push = rng.normal(size=pts.shape)
     push *= 0.05 / np.linalg.norm(push, axis=1, keepdims=True)
     assert space.contains(pts).all() and space.contains(pts + push).all()
+
+
+def test_horizontal_distance_to_a_rotated_panel_is_a_tight_lower_bound(planar_space):
+    # a panel turned 30 deg about z; independent distance: in the panel's frame the footprint is the
+    # rectangle |u| <= hx, |v| <= hy, so a point's distance is hypot(max(|u| - hx, 0), max(|v| - hy, 0))
+    from envelope.geometry import Box
+    from envelope.poses import pose_from_euler
+
+    pose = pose_from_euler([1.2, 0.4, 1.0], np.radians([0, 0, 30]))
+    box = Box([0.04, 1.0, 2.0], pose)
+    rng = np.random.default_rng(13)
+    pts = rng.uniform([-0.9, -0.06, -0.9], [0.9, 0.06, 0.9], size=(300000, 3))
+    pts = pts[annulus_distance(pts) <= R_CAPSULE]  # points of the true region
+    local = (pts - pose[:3, 3]) @ pose[:3, :3]
+    hx, hy = 0.02, 0.5
+    true = np.hypot(np.maximum(np.abs(local[:, 0]) - hx, 0), np.maximum(np.abs(local[:, 1]) - hy, 0)).min()
+    hd = planar_space.horizontal_distance_to_box(box)
+    assert true - planar_space.over_approximation <= hd.distance <= true
+    assert np.nanmin(hd.per_level) == pytest.approx(hd.distance)

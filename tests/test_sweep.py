@@ -423,6 +423,33 @@ def test_linear_move_through_wrist_singularity_is_flagged():
     assert "wrist" in row.note
 
 
+def test_linear_move_through_shoulder_singularity_is_flagged():
+    # Tool pointing down, TCP on a line at y = 0 from x = 0.35 to x = -0.25: the wrist centre is right
+    # above the TCP, so it crosses joint 1's axis where x = 0, at path fraction 0.35 / 0.6 (plane
+    # geometry). There the arm must flip from front to back (shoulder singularity, common practice,
+    # no source). The line also passes over the shoulder joint (x = a1 = 0.1), where only the elbow
+    # label's convention changes: that is noted, not flagged.
+    cell = make_cell((FLOOR,))
+
+    def pose(x):
+        T = np.eye(4)
+        T[:3, :3] = np.diag([1.0, -1.0, -1.0])
+        T[:3, 3] = [x, 0.0, 0.7]
+        return T
+
+    sol = cell.arm.ik(cell.base_from_flange(pose(0.35)))
+    k = [i for i in range(len(sol)) if sol.labels[i] == "front-up-pos" and sol.twin[i] == i][0]
+    row = sweep_move(cell, sol.q[k], pose(-0.25), motion="linear")
+    assert row.singular_crossed == "shoulder"
+    assert row.status == "unreachable"
+    assert row.end_branch.startswith("back")
+    assert f"shoulder singularity is crossed at path fraction {0.35 / 0.6:.4f}" in row.note
+    assert "without a singularity" in row.note
+    # a line that stays in front of the axis is followed to its end
+    short = sweep_move(cell, sol.q[k], pose(0.2), motion="linear")
+    assert short.singular_crossed == "" and np.isfinite(short.q_end).all()
+
+
 def test_linear_move_near_wrist_singularity_has_a_high_speed_ratio():
     # The same move with joint 4 slightly off the plane keeps theta5 > 0 but passes close to 0:
     # joints 4 and 6 must swing fast (the joint speed grows like 1 / sin(theta5)).

@@ -225,6 +225,27 @@ class Arm:
             return ik_single(self, T, **({} if n_starts is None else {"n_starts": n_starts}))
         return ik_batch(self, T, **({} if n_starts is None else {"n_starts": n_starts}))
 
+    def ik_each(self, base_from_flange, *, n_starts: int | None = None) -> list:
+        """``IKSolutions`` of every pose of a batch: the same as ``[arm.ik(T) for T in base_from_flange]``.
+
+        One vectorised solve for all poses and a cheap per-pose assembly (turn variants included),
+        so it is the fast way to get full per-pose results for many targets.
+
+        Parameters
+        ----------
+        base_from_flange : (n, 4, 4) array_like
+            Target flange poses in the base frame, metres.
+        n_starts : int, optional
+            Start configurations of the numerical solver; 64 by default, as for one pose.
+
+        Returns
+        -------
+        list of n IKSolutions
+        """
+        from .ik import ik_each
+
+        return ik_each(self, base_from_flange, **({} if n_starts is None else {"n_starts": n_starts}))
+
     def joint_axes(self, q) -> tuple[np.ndarray, np.ndarray]:
         """Points on, and unit directions of, the six joint axes in the base frame.
 
@@ -238,7 +259,8 @@ class Arm:
         """
         F = self.frames(q)
         idx = np.arange(N_JOINTS) if self.convention == "standard" else np.arange(1, N_JOINTS + 1)
-        return F[..., idx, :3, 3], F[..., idx, :3, 2]
+        F = F[..., idx, :, :]
+        return F[..., :3, 3], F[..., :3, 2]
 
     def within_limits(self, q, tol: float = 0.0) -> np.ndarray:
         """``(..., 6)`` bool: each joint value within its limits (widened by ``tol`` radians)."""

@@ -106,11 +106,13 @@ def place_in_limits(q: np.ndarray, limits: np.ndarray):
     for j in range(q.shape[-1]):
         lo, hi = limits[j]
         x = q[..., j]
-        if np.abs(x).max(initial=0.0) <= 3 * np.pi:  # the solvers' angles: two conditional turns suffice
-            wrapped = np.where(x > np.pi, x - two_pi, x)
-            wrapped = np.where(wrapped < -np.pi, wrapped + two_pi, wrapped)
-        else:
-            wrapped = np.remainder(x + np.pi, two_pi) - np.pi
+        # the solvers' angles (|x| <= 3 pi): two conditional turns suffice; chosen per element, so a
+        # pose's result never depends on the other poses of its batch
+        wrapped = np.where(x > np.pi, x - two_pi, x)
+        wrapped = np.where(wrapped < -np.pi, wrapped + two_pi, wrapped)
+        far = ~(np.abs(x) <= 3 * np.pi)
+        if far.any():
+            wrapped = np.where(far, np.remainder(x + np.pi, two_pi) - np.pi, wrapped)
         if lo <= -np.pi and hi >= np.pi:  # the whole circle: the wrapped angle is in range, smallest
             placed[..., j] = wrapped
             within[..., j] = True

@@ -9,8 +9,6 @@ numerically from many starts (``numeric.py``).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from itertools import product
-
 import numpy as np
 
 from ..errors import InputError
@@ -137,6 +135,12 @@ class IKBatch:
         return table[np.where(self.code >= 0, self.code, len(BRANCH_LABELS))]
 
 
+NUMERIC_CHUNK = 64
+"""Poses per pass of the numerical solver in ``ik_each`` (bounds its (poses, starts, starts) temporaries)."""
+VARIANT_CHUNK = 4096
+"""Branch rows per pass of the vectorised turn-variant enumeration."""
+
+
 def _raw(arm, flat: np.ndarray, n_starts: int, slots: int | None):
     """``(q, valid, code, measure, method, complete, starts, extra)`` for ``(n, 4, 4)`` poses."""
     if arm.spherical_wrist:
@@ -188,45 +192,134 @@ def ik_single(arm, base_from_flange, *, n_starts: int = numeric.DEFAULT_STARTS) 
     T = validate_pose(base_from_flange, item="base_from_flange")
     if T.shape != (4, 4):
         raise InputError(f"ik_single expects one (4, 4) pose, got {T.shape}", item="base_from_flange")
-    q, valid, code, measure, method, complete, starts, raw = _raw(arm, T[None], n_starts, None)
-    q, valid, code, measure = q[0], valid[0], code[0], measure[0]
-    keep = np.flatnonzero(valid)
-    q, code, measure = q[keep], code[keep], measure[keep]
+    return _solutions(arm, T[None], n_starts)[0]
+
+
+def ik_each(arm, base_from_flange, *, n_starts: int = numeric.DEFAULT_STARTS) -> list:
+    """``IKSolutions`` of every pose of a ``(n, 4, 4)`` batch, equal to ``[ik_single(arm, T) for T in ...]``.
+
+    One vectorised solve for all poses, vectorised limit placement and turn-variant enumeration, then
+    a cheap per-pose assembly (slices of shared arrays); only the ``reason`` of an unreachable pose is
+    worked out per pose.
+    """
+    T = validate_pose(base_from_flange, item="base_from_flange")
+    if T.ndim != 3:
+        raise InputError(f"ik_each expects poses of shape (n, 4, 4), got {T.shape}", item="base_from_flange")
+    return _solutions(arm, np.ascontiguousarray(T), n_starts)
+
+
+def _raw_all(arm, flat: np.ndarray, n_starts: int):
+    """Solver output for ``(n, 4, 4)`` poses in chunks: ``q (n, k, 6)``, ``valid (n, k)``, ``code (n, k)``,
+    ``measure (n, k, 3)``, ``wrist_centre (n, 3)``, ``arm_found (n,)`` (closed form only, else None)."""
+    n = len(flat)
+    step = CHUNK if arm.spherical_wrist else NUMERIC_CHUNK
+    parts = []
+    for i in range(0, n, step):
+        q, valid, code, measure, _, _, _, raw = _raw(arm, flat[i : i + step], n_starts, None)
+        extra = (raw.wrist_centre, raw.arm_found) if raw is not None else (None, None)
+        parts.append((q, valid, code, measure) + extra)
+    if len(parts) == 1:
+        return parts[0]
+    cat = lambda k: None if parts[0][k] is None else np.concatenate([p[k] for p in parts])  # noqa: E731
+    return tuple(cat(k) for k in range(6))
+
+
+def turn_variants(q_rows: np.ndarray, ok: np.ndarray, limits: np.ndarray):
+    """Every turn variant of the rows ``ok`` of ``q_rows`` ``(r, 6)`` (placed in the limits).
+
+    A variant adds whole turns ``2 pi m`` (``m != 0``) to joints whose range holds more than one
+    equivalent angle. Returns the source row of each variant ``(v,)`` and the turn counts ``(v, 6)``
+    float, ordered by source row, then as ``itertools.product`` over the joints' counts (joint 1 slowest).
+    """
+    rows = np.flatnonzero(ok)
+    empty = np.empty(0, np.int64), np.empty((0, 6))
+    if rows.size == 0:
+        return empty
+    m_lo, m_hi = turn_counts(q_rows[rows], limits)
+    active = np.flatnonzero((m_lo != 0).any(0) | (m_hi != 0).any(0))
+    if active.size == 0:
+        return empty
+    ranges = [np.arange(m_lo[:, j].min(), m_hi[:, j].max() + 1) for j in active]
+    grid = np.stack(np.meshgrid(*ranges, indexing="ij"), -1).reshape(-1, active.size)  # first joint slowest
+    grid = grid[(grid != 0).any(-1)]
+    lo, hi = m_lo[:, active], m_hi[:, active]
+    src, counts = [], []
+    step = max(1, VARIANT_CHUNK * 64 // max(len(grid), 1))
+    for i in range(0, len(rows), step):
+        sl = slice(i, i + step)
+        fits = ((grid >= lo[sl, None]) & (grid <= hi[sl, None])).all(-1)
+        r, c = np.nonzero(fits)
+        src.append(rows[sl][r])
+        counts.append(grid[c])
+    m = np.zeros((sum(len(s) for s in src), 6))
+    m[:, active] = np.concatenate(counts)
+    return np.concatenate(src), m
+
+
+def _solutions(arm, flat: np.ndarray, n_starts: int) -> list:
+    """``IKSolutions`` per pose of validated ``(n, 4, 4)`` poses."""
+    n = len(flat)
+    if n == 0:
+        return []
+    q, valid, code, measure, wc, arm_found = _raw_all(arm, flat, n_starts)
+    closed = arm.spherical_wrist
+    method, complete, starts = ("closed-form", True, 0) if closed else ("numeric", False, n_starts)
     placed, within, excess = place_in_limits(q, arm.limits)
+    # branch rows, by pose then slot
+    pb, sb = np.nonzero(valid)
+    nb = np.count_nonzero(valid, axis=1)
+    rank = (np.cumsum(valid, axis=1) - 1)[pb, sb]  # row of the branch in its pose's result
+    bq, bw, be, bc, bm = placed[pb, sb], within[pb, sb], excess[pb, sb], code[pb, sb], measure[pb, sb]
+    b_in = bw.all(-1)
+    # turn variants of the in-limit branches
+    vsrc, vm = turn_variants(bq, b_in, arm.limits)
+    vq = bq[vsrc] + 2 * np.pi * vm
+    pv = pb[vsrc]
+    nv = np.bincount(pv, minlength=n)
+    # per pose: its branches, then its variants
+    start = np.zeros(n + 1, np.int64)
+    np.cumsum(nb + nv, out=start[1:])
+    v_first = np.zeros(n, np.int64)
+    np.cumsum(nv[:-1], out=v_first[1:])
+    pos_b = start[pb] + rank
+    pos_v = start[pv] + nb[pv] + (np.arange(len(pv)) - v_first[pv])
+    total = int(start[-1])
+    Q = np.empty((total, 6))
+    Q[pos_b], Q[pos_v] = bq, vq
+    W = np.ones((total, 6), bool)  # turn variants lie inside the limits by construction
+    W[pos_b] = bw
+    E = np.zeros((total, 6))
+    E[pos_b] = be
+    C = np.empty(total, np.int8)
+    C[pos_b], C[pos_v] = bc, bc[vsrc]
+    M = np.empty((total, 3))
+    M[pos_b], M[pos_v] = bm, bm[vsrc]
+    TW = np.empty(total, np.int64)
+    TW[pos_b], TW[pos_v] = rank, rank[vsrc]
+    S = M < SINGULAR_TOLS
+    S_w, S_s, S_e = S[:, 0], S[:, 1], S[:, 2]
+    labels = [BRANCH_LABELS[c] for c in C.tolist()]
+    reach = (np.bincount(pb, weights=b_in, minlength=n) > 0).tolist()
+    bounds, nbl = start.tolist(), nb.tolist()
+    wcs = wc if closed else np.full((n, 3), np.nan)
+    out = []
+    for p in range(n):
+        s, e = bounds[p], bounds[p + 1]
+        reason = ""
+        if not reach[p]:
+            b = slice(s, s + nbl[p])
+            found = bool(arm_found[p]) if closed else False
+            reason = _reason(arm, wcs[p], found, nbl[p], Q[b], E[b], C[b], method, starts)
+        out.append(IKSolutions(
+            q=Q[s:e], labels=tuple(labels[s:e]), code=C[s:e], within_limits=W[s:e], excess=E[s:e],
+            singular_wrist=S_w[s:e], singular_shoulder=S_s[s:e], singular_elbow=S_e[s:e],
+            singular_measure=M[s:e], twin=TW[s:e], method=method, complete=complete, starts=starts,
+            reachable=reach[p], reason=reason, wrist_centre=wcs[p],
+        ))
+    return out
 
-    # turn variants of joints whose range holds more than one equivalent angle
-    rows_q, rows_src = [placed], [np.arange(len(keep))]
-    m_lo, m_hi = turn_counts(placed, arm.limits)
-    for i in range(len(keep)):
-        if not within[i].all():
-            continue
-        choices = [range(m_lo[i, j], m_hi[i, j] + 1) for j in range(6)]
-        for ms in product(*choices):
-            if not any(ms):
-                continue
-            rows_q.append(placed[i] + 2 * np.pi * np.array(ms, dtype=float))
-            rows_src.append(np.array([i]))
-    qv = np.vstack([r.reshape(-1, 6) for r in rows_q])
-    src = np.concatenate(rows_src)
-    within_v = np.ones(qv.shape, bool)  # turn variants lie inside the limits by construction
-    excess_v = np.zeros(qv.shape)
-    within_v[: len(keep)], excess_v[: len(keep)] = within, excess
-    code_v, meas_v = code[src], measure[src]
-    sing = meas_v < SINGULAR_TOLS
-    reachable = bool(within_v.all(-1).any())
-    wc = raw.wrist_centre[0] if raw is not None else np.full(3, np.nan)
-    reason = ""
-    if not reachable:
-        reason = _reason(arm, T, wc, raw, len(keep), placed, excess, code, method, starts)
-    return IKSolutions(
-        q=qv, labels=tuple(BRANCH_LABELS[c] for c in code_v), code=code_v.astype(np.int8), within_limits=within_v,
-        excess=excess_v, singular_wrist=sing[:, 0], singular_shoulder=sing[:, 1], singular_elbow=sing[:, 2],
-        singular_measure=meas_v, twin=src, method=method, complete=complete, starts=starts, reachable=reachable,
-        reason=reason, wrist_centre=wc,
-    )
 
-
-def _reason(arm, T, wc, raw, k, placed, excess, code, method, starts) -> str:
+def _reason(arm, wc, arm_found, k, placed, excess, code, method, starts) -> str:
     if k > 0:
         worst = excess.max(-1)
         i = int(np.argmin(worst))
@@ -238,7 +331,7 @@ def _reason(arm, T, wc, raw, k, placed, excess, code, method, starts) -> str:
         )
     if method == "numeric":
         return f"no solution found from {starts} starts (the numerical search is not guaranteed complete)"
-    if raw.arm_found[0]:
+    if arm_found:
         return "the wrist cannot reach the orientation: axis 6 cannot take the required direction"
     gap, beyond = wrist_centre_gap(arm, wc)
     if beyond:

@@ -271,20 +271,26 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
     ch, off = model.chain, model.offset
     T = base_from_flange
     n = T.shape[0]
-    wc = (T @ model.G6inv)[:, :3, 3]
-    p = wc @ model.G0inv[:3, :3].T + model.G0inv[:3, 3]
-    P1 = 0.5 * (np.einsum("ij,ij->i", p, p) - model.t1sq - model.s0sq) - model.az * model.s0[2]
-    P2 = p[:, 2] - model.t1z - model.bz * model.s0[2]
+    # Products with a pose are written out element by element (no BLAS call over the batch), so a
+    # pose's result is the same bit for bit whatever batch it is solved in.
+    g6 = model.G6inv[:, 3]
+    wc = T[:, :3, 0] * g6[0] + T[:, :3, 1] * g6[1] + T[:, :3, 2] * g6[2] + T[:, :3, 3]
+    G0 = model.G0inv
+    p = wc[:, 0:1] * G0[:3, 0] + wc[:, 1:2] * G0[:3, 1] + wc[:, 2:3] * G0[:3, 2] + G0[:3, 3]
+    px, py, pz = p[:, 0], p[:, 1], p[:, 2]
+    P1 = 0.5 * ((px * px + py * py + pz * pz) - model.t1sq - model.s0sq) - model.az * model.s0[2]
+    P2 = pz - model.t1z - model.bz * model.s0[2]
 
     # ---- theta3 (and for the parallel case theta2) -------------------------------------------
     if model.mode == "general":
-        V0 = np.stack([P1, P2], -1) @ model.Minv.T  # (n, 2)
+        Mi = model.Minv
+        V0 = np.stack([Mi[0, 0] * P1 + Mi[0, 1] * P2, Mi[1, 0] * P1 + Mi[1, 1] * P2], -1)  # (n, 2)
         Vc = model.Minv @ np.array([model.g1c, model.g2c])
         Vs = model.Minv @ np.array([model.g1s, model.g2s])
         S0, Sc, Ss = model.S0, model.Sc, model.Ss
-        Q00 = np.einsum("ij,ij->i", V0, V0) - S0 @ S0
-        Q01 = V0 @ Vc - S0 @ Sc
-        Q02 = V0 @ Vs - S0 @ Ss
+        Q00 = (V0[:, 0] * V0[:, 0] + V0[:, 1] * V0[:, 1]) - S0 @ S0
+        Q01 = (V0[:, 0] * Vc[0] + V0[:, 1] * Vc[1]) - S0 @ Sc
+        Q02 = (V0[:, 0] * Vs[0] + V0[:, 1] * Vs[1]) - S0 @ Ss
         Q11, Q22, Q12 = Vc @ Vc - Sc @ Sc, Vs @ Vs - Ss @ Ss, Vc @ Vs - Sc @ Ss
         k0 = Q00 + 0.5 * (Q11 + Q22)
         k1, k2 = 2 * Q01, 2 * Q02
@@ -367,10 +373,11 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
     # R_T Rx(alpha6)^T: columns x' = x, z' = sa6 y + ca6 z
     colx = RT[:, :, 0]
     colz = sa6 * RT[:, :, 1] + ca6 * RT[:, :, 2]
-    hx = np.einsum("nkj,nj->nk", f.x, colz)
-    hy = np.einsum("nkj,nj->nk", f.y, colz)
-    hz = np.einsum("nkj,nj->nk", f.z, colz)
-    ex = np.stack([np.einsum("nkj,nj->nk", ax, colx) for ax in (f.x, f.y, f.z)], -1)  # W e_x  (n,4,3)
+    def dot(ax, col):  # (n, 4, 3) . (n, 3) -> (n, 4)
+        return ax[..., 0] * col[:, None, 0] + ax[..., 1] * col[:, None, 1] + ax[..., 2] * col[:, None, 2]
+
+    hx, hy, hz = dot(f.x, colz), dot(f.y, colz), dot(f.z, colz)
+    ex = np.stack([dot(ax, colx) for ax in (f.x, f.y, f.z)], -1)  # W e_x  (n,4,3)
     a4, a5 = ch.alpha[4], ch.alpha[5]
     ca4, sa4, ca5, sa5 = np.cos(a4), np.sin(a4), np.cos(a5), np.sin(a5)
     xw = (ca4 * ca5 - hz) / (sa4 * sa5)
