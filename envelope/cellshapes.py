@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import CellFileError, InputError, PoseError
-from .geometry import Box, Capsule, Convex, Cylinder, HalfSpace, Sphere, TriMesh
+from .geometry import Box, Capsule, Convex, Cylinder, HalfSpace, Sphere, TriMesh, transformed
 from .poses import pose_from_euler, pose_from_matrix, pose_from_quaternion
 from .units import LENGTH_SCALE, pose_to_metres, to_metres, to_radians
 
@@ -275,25 +275,7 @@ def _describe(value) -> str:
 # ---------------------------------------------------------------------- transforms
 def transform_shape(shape, parent_from_frame: np.ndarray):
     """The same solid with its coordinates taken from a frame into its parent (``(4, 4)`` rigid)."""
-    T = np.asarray(parent_from_frame, dtype=np.float64)
-    R, t = T[:3, :3], T[:3, 3]
-    if isinstance(shape, Sphere):
-        return Sphere(R @ shape.center + t, shape.radius)
-    if isinstance(shape, Capsule):
-        return Capsule(R @ shape.p0 + t, R @ shape.p1 + t, shape.radius)
-    if isinstance(shape, Box):
-        return Box(shape.extents, T @ shape.pose)
-    if isinstance(shape, Cylinder):
-        return Cylinder(shape.radius, shape.length, T @ shape.pose)
-    if isinstance(shape, HalfSpace):
-        n = R @ shape.normal
-        n = n / np.linalg.norm(n)  # rounding only: R is validated orthonormal
-        return HalfSpace(n, shape.offset + float(n @ t))
-    if isinstance(shape, Convex):
-        return Convex(shape.vertices @ R.T + t)
-    if isinstance(shape, TriMesh):
-        return TriMesh(shape.vertices @ R.T + t, shape.faces, shape.watertight, shape.source)
-    raise TypeError(f"unknown shape type {type(shape).__name__}")
+    return transformed(shape, parent_from_frame)
 
 
 # ---------------------------------------------------------------------- meshes

@@ -110,6 +110,9 @@ class CheckResult:
     motions: tuple = ()
     warnings: tuple = ()
     timings: dict = field(default_factory=dict)
+    space: object = None
+    """The space check (maximum / restricted space, fence panel verdicts, crushing points, suggested
+    axis limits) when it was run, else None."""
 
     def worst_first(self) -> list:
         """Row indices sorted worst first: by status severity, then by margin."""

@@ -232,16 +232,7 @@ def pose_from_euler(xyz, angles, convention: str = "fixed-xyz") -> np.ndarray:
     -------
     (4, 4) or (n, 4, 4) float64 ndarray
     """
-    p = np.asarray(xyz, dtype=np.float64)
-    if p.shape[-1:] != (3,):
-        raise PoseError(f"expected a position of 3 values, got shape {p.shape}")
-    R = rotation_from_euler(angles, convention)
-    shape = np.broadcast_shapes(p.shape[:-1], R.shape[:-2])
-    out = np.zeros(shape + (4, 4))
-    out[..., :3, :3] = R
-    out[..., :3, 3] = p
-    out[..., 3, 3] = 1.0
-    return out
+    return _assemble(xyz, rotation_from_euler(angles, convention))
 
 
 def rotation_from_quaternion(quaternion, order: str = "wxyz") -> np.ndarray:
@@ -282,10 +273,14 @@ def rotation_from_quaternion(quaternion, order: str = "wxyz") -> np.ndarray:
 
 def pose_from_quaternion(xyz, quaternion, order: str = "wxyz") -> np.ndarray:
     """A pose from a position (metres) and a unit quaternion (scalar first unless ``order="xyzw"``)."""
+    return _assemble(xyz, rotation_from_quaternion(quaternion, order))
+
+
+def _assemble(xyz, R) -> np.ndarray:
+    """Poses ``(..., 4, 4)`` from positions ``(..., 3)`` and rotations ``(..., 3, 3)`` (broadcast)."""
     p = np.asarray(xyz, dtype=np.float64)
     if p.shape[-1:] != (3,):
         raise PoseError(f"expected a position of 3 values, got shape {p.shape}")
-    R = rotation_from_quaternion(quaternion, order)
     shape = np.broadcast_shapes(p.shape[:-1], R.shape[:-2])
     out = np.zeros(shape + (4, 4))
     out[..., :3, :3] = R

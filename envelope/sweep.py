@@ -544,9 +544,12 @@ def linear_path(cell, q_start, world_from_tcp_end, coef_max: np.ndarray, *, path
         counter[0] += len(s)
         return arm.ik(poses(s))
 
-    def pick(sol, i, ref):
-        """Solution of pose ``i`` nearest ``ref`` (unwrapped) and its code, or (None, -1)."""
+    def pick(sol, i, ref, codes=None):
+        """Solution of pose ``i`` nearest ``ref`` (unwrapped) and its code, or (None, -1); only among
+        ``codes`` if given."""
         ok = sol.valid[i]
+        if codes is not None:
+            ok = ok & np.isin(sol.code[i], list(codes))
         if not ok.any():
             return None, -1
         cand = _unwrap(np.where(ok[:, None], sol.q[i], 0.0), ref)
@@ -642,7 +645,9 @@ def linear_path(cell, q_start, world_from_tcp_end, coef_max: np.ndarray, *, path
         lo, hi, q_lo, q_hi, c_hi = S[k - 1], S[k], Q[k - 1], Q[k], codes[k]
         while hi - lo > SINGULAR_LOCATE:
             mid = 0.5 * (lo + hi)
-            qm, c = pick(solve([mid]), 0, 0.5 * (q_lo + q_hi))
+            # between the two labels only: right at a wrist singularity the solver returns one
+            # representative with an arbitrary split of theta4 / theta6, which must not pull in a far branch
+            qm, c = pick(solve([mid]), 0, 0.5 * (q_lo + q_hi), codes=(cur, c_hi))
             if qm is None:
                 break
             if c == cur:

@@ -334,3 +334,98 @@ def test_unreachable_wrist_orientation_reason():
     assert len(res) == 0 and "wrist cannot reach the orientation" in res.reason
     # independent: a many-start scipy.optimize.least_squares search (source: scipy) finds no solution either
     assert distinct_solutions_scipy(arm, T[none[0]], 20, seed=5) == []
+
+
+# ---------------------------------------------------------------------------------- ik_each
+FIELDS = ("q", "labels", "code", "within_limits", "excess", "singular_wrist", "singular_shoulder", "singular_elbow",
+          "singular_measure", "twin", "method", "complete", "starts", "reachable", "reason", "wrist_centre")
+
+
+def assert_same_solutions(a, b):
+    for name in FIELDS:
+        x, y = getattr(a, name), getattr(b, name)
+        if isinstance(x, np.ndarray):
+            assert x.dtype == y.dtype and x.shape == y.shape, name
+            np.testing.assert_array_equal(x, y, err_msg=name)  # bit for bit, nan where nan
+        else:
+            assert x == y, name
+
+
+def turn_variants_by_loop(arm, sol):
+    """Rows of ``sol`` rebuilt one branch at a time with itertools.product (a plain second enumeration)."""
+    from itertools import product
+
+    from envelope.kinematics.branches import turn_counts
+
+    reps = np.flatnonzero(sol.is_representative)
+    q, twin = [sol.q[reps]], [reps]
+    m_lo, m_hi = turn_counts(sol.q[reps], arm.limits)
+    for r, i in enumerate(reps):
+        if not sol.within_limits[i].all():
+            continue
+        for ms in product(*[range(m_lo[r, j], m_hi[r, j] + 1) for j in range(6)]):
+            if any(ms):
+                q.append(sol.q[i] + 2 * np.pi * np.array(ms, dtype=float))
+                twin.append([i])
+    return np.vstack([np.reshape(v, (-1, 6)) for v in q]), np.concatenate(twin)
+
+
+def mixed_poses(arm, n, seed):
+    """Reachable, wrist-singular, shoulder-singular, stretched-elbow and unreachable poses."""
+    rng = np.random.default_rng(seed)
+    q = rng.uniform(-PI, PI, (n, 6))
+    q[: n // 10, 4] = -arm.offset[4]  # theta5 = 0
+    T = arm.fk(q)
+    k = n // 10
+    T[k : 2 * k, :3, 3] *= 4.0  # beyond reach (each reason computed per pose)
+    R = pose_from_euler([0, 0, 0], rng.uniform(-PI, PI, (k, 3)))
+    T[2 * k : 3 * k, :3, :3] = R[:, :3, :3]
+    T[2 * k : 3 * k, :3, 3] = arm.fk(np.zeros(6))[:3, 3] * [0.0, 0.0, 1.0] + 0.1 * R[:, :3, 2]  # near axis 1
+    return T
+
+
+LIMITS_360 = np.radians([[-170, 170], [-120, 150], [-170, 160], [-360, 360], [-125, 125], [-400, 400]])
+LIMITS_NARROW = np.radians([[-10, 10], [-120, 150], [-170, 160], [-190, 190], [-125, 125], [-360, 360]])
+
+
+@pytest.mark.parametrize("name, limits", [("ortho-standard", LIMITS_360), ("ortho-modified", LIMITS_NARROW),
+                                          ("ortho-standard", None), ("general-standard", None), ("a1-zero", None),
+                                          ("alpha1-zero", LIMITS_360)])
+def test_ik_each_equals_loop_over_ik(name, limits):
+    arm = ARMS[name]()
+    if limits is not None:
+        arm = arm.with_limits(limits)
+    T = mixed_poses(arm, 200, seed=40)
+    each = arm.ik_each(T)
+    assert len(each) == len(T)
+    for k, P in enumerate(T):
+        assert_same_solutions(each[k], arm.ik(P))
+    # the cases are present: unreachable (with a reason), turn variants, outside-limit and singular rows
+    assert any(not s.reachable and s.reason for s in each)
+    assert any(s.singular_wrist.any() for s in each) and any(s.singular_shoulder.any() for s in each)
+    if limits is LIMITS_360:
+        assert sum((~s.is_representative).sum() for s in each) > len(T)
+    if limits is LIMITS_NARROW:
+        assert any(len(s) and not s.reachable and "outside the joint limits" in s.reason for s in each)
+    # rows and twins agree with a per-branch itertools.product enumeration of the turn variants
+    for s in each:
+        q, twin = turn_variants_by_loop(arm, s)
+        np.testing.assert_array_equal(s.q, q)
+        np.testing.assert_array_equal(s.twin, twin)
+
+
+def test_ik_each_numeric_and_bad_input():
+    arm = non_spherical()
+    T = arm.fk(np.random.default_rng(41).uniform(-PI, PI, (3, 6)))
+    T[2, :3, 3] *= 5.0  # unreachable: the numerical search finds nothing
+    each = arm.ik_each(T, n_starts=16)
+    for k in range(3):
+        assert_same_solutions(each[k], arm.ik(T[k], n_starts=16))
+    assert each[0].reachable and not each[2].reachable and "16 starts" in each[2].reason
+    assert ortho().ik_each(np.empty((0, 4, 4))) == []
+    with pytest.raises(InputError, match=r"shape \(n, 4, 4\), got \(4, 4\)"):
+        ortho().ik_each(np.eye(4))
+    bad = np.stack([np.eye(4)] * 3)
+    bad[1, 3, 0] = 1.0
+    with pytest.raises(PoseError, match=r"\[1\]: bottom row"):
+        ortho().ik_each(bad)
