@@ -30,7 +30,7 @@ from .geometry import ZONE_KINDS, Body, Zone
 from .kinematics import Arm
 from .kinematics.arm import CONVENTIONS, N_JOINTS
 from .poses import invert, pose_from_euler, pose_from_matrix, pose_from_quaternion
-from .units import ANGLE_SCALE, LENGTH_SCALE, to_metres
+from .units import ANGLE_SCALE, LENGTH_SCALE, to_metres, to_mm
 
 
 @dataclass(frozen=True, eq=False)
@@ -75,6 +75,48 @@ class Program:
     source: str = ""
 
 
+DEVICE_KINDS = ("perpendicular", "multi-beam", "single-beam")
+"""Kinds of protective device (ISO 13855 approach): an area-guarding curtain approached at right angles
+(needs its detection capability), a multi-beam or a single-beam device."""
+
+
+@dataclass(frozen=True, eq=False)
+class ProtectiveDevice:
+    """An electro-sensitive protective device (light curtain, beams) that stops the arm.
+
+    Attributes
+    ----------
+    name, kind : str
+        ``kind`` is one of ``DEVICE_KINDS``.
+    response_time, stopping_time : float
+        Seconds: the device's response time and the arm's stopping time; ISO 13855's T is their sum.
+    detection_capability : float or None
+        Metres (``"perpendicular"`` only; None for beam devices).
+    points : (m, 2) float
+        Metres, cell frame XY: the polyline (m >= 2) along which the device's vertical detection plane
+        stands; its distance to the restricted space is measured horizontally.
+    source : str
+        Where it was given.
+    """
+
+    name: str
+    kind: str
+    response_time: float
+    stopping_time: float
+    detection_capability: float | None
+    points: np.ndarray
+    source: str = ""
+
+    @property
+    def total_time(self) -> float:
+        """T (s): response time plus stopping time."""
+        return self.response_time + self.stopping_time
+
+
+RISKS = ("high", "low")
+"""ISO 13857 risk levels of a cell (which reach-over table applies); ``"high"`` unless the file says."""
+
+
 @dataclass(frozen=True, eq=False)
 class Cell:
     """An immutable cell. Lengths in metres, angles in radians.
@@ -100,7 +142,11 @@ class Cell:
         kind -> metres); ``self_clearance``, ``stopping_allowance`` (metres); ``body_mesh_model``
         (``"convex hull"``: link/tool meshes are replaced by their hulls); ``generated_links``
         (names of links given capsules from the DH table); ``zone_meshes`` ((zone, file,
-        watertight) triples).
+        watertight) triples); ``soft_limits`` ((6, 2) radians, read-only: the soft axis limits,
+        equal to the mechanical limits where the file gives none); ``soft_limit_joints`` (1-based
+        numbers of the joints with a soft limit given); ``risk`` (``"high"`` or ``"low"``, ISO 13857).
+    devices : tuple of ProtectiveDevice
+        The cell's protective devices (``[[devices]]``), in file order.
     """
 
     name: str
@@ -119,6 +165,7 @@ class Cell:
     warnings: tuple = ()
     inputs: tuple = ()
     settings: dict = field(default_factory=dict)
+    devices: tuple = ()
 
     @property
     def bodies(self) -> tuple:
@@ -158,9 +205,10 @@ BUILTIN_FRAMES = ("world", "base")
 """Frames every cell has: the cell frame and the arm's base frame (placed by ``[arm.mount]``)."""
 
 TOP_KEYS = ("name", "units", "angle_units", "required_clearance", "self_clearance", "stopping_allowance",
-            "allowed_self_pairs", "frames", "arm", "tool", "zones", "targets", "targets_file", "programs")
+            "allowed_self_pairs", "frames", "arm", "tool", "zones", "targets", "targets_file", "programs",
+            "risk", "devices")
 ARM_KEYS = ("name", "convention", "joints", "mount", "links", "capsule_radius", "padding")
-JOINT_KEYS = ("a", "alpha", "d", "offset", "min", "max")
+JOINT_KEYS = ("a", "alpha", "d", "offset", "min", "max", "soft_min", "soft_max")
 LINK_KEYS = ("link", "name", "padding")
 TOOL_KEYS = ("name", "tcp", "padding", "payload")
 PAYLOAD_KEYS = ("name", "padding")
@@ -168,6 +216,7 @@ ZONE_KEYS = ("name", "kind", "clearance", "allowed", "frame")
 TARGET_KEYS = ("name", "frame") + POSE_KEYS
 PROGRAM_KEYS = ("name", "moves")
 MOVE_KEYS = ("to", "motion", "branch", "stopping_allowance")
+DEVICE_KEYS = ("name", "kind", "response_time", "stopping_time", "detection_capability", "points")
 
 CSV_COLUMNS = ("name", "frame", "x", "y", "z", "convention", "euler_1", "euler_2", "euler_3",
                "qw", "qx", "qy", "qz", "r11", "r12", "r13", "r21", "r22", "r23", "r31", "r32", "r33")
@@ -221,10 +270,11 @@ def _load(r: Reader, data: dict) -> Cell:
                            if "self_clearance" in data else to_metres(DEFAULT_SELF_CLEARANCE_MM, "mm"))
     stopping = float(r.length(r.number(data, "stopping_allowance", "top level", required=False, default=0.0,
                                        sign=">=0")))
+    risk = r.string(data, "risk", "top level", default="high", choices=RISKS)
 
     # arm and frames
     arm_table = r.table(data, "arm", "[arm]", required=True)
-    arm, mount, mount_parent, links, generated = _read_arm(r, arm_table)
+    arm, mount, mount_parent, links, generated, soft_limits, soft_joints = _read_arm(r, arm_table)
     frames = _resolve_frames(r, r.table(data, "frames", "[frames]") or {}, mount, mount_parent)
     world_from_base = frames["base"]
 
@@ -241,6 +291,7 @@ def _load(r: Reader, data: dict) -> Cell:
     zones, mesh_notes = _read_zones(r, data, frames, clearance, names)
     targets = _read_targets(r, data, frames)
     programs = _read_programs(r, data, targets)
+    devices = _read_devices(r, data)
 
     settings = {
         "units": r.units,
@@ -251,6 +302,9 @@ def _load(r: Reader, data: dict) -> Cell:
         "body_mesh_model": BODY_MESH_MODEL,
         "generated_links": tuple(generated),
         "zone_meshes": tuple(mesh_notes),
+        "soft_limits": soft_limits,
+        "soft_limit_joints": soft_joints,
+        "risk": risk,
     }
     return Cell(
         name=name,
@@ -269,6 +323,7 @@ def _load(r: Reader, data: dict) -> Cell:
         warnings=tuple(r.warnings),
         inputs=tuple(r.inputs.items()),
         settings=settings,
+        devices=tuple(devices),
     )
 
 
@@ -282,6 +337,7 @@ def _read_arm(r: Reader, t: dict):
     if len(rows) != N_JOINTS:
         raise r.error(f"[[arm.joints]] must have {N_JOINTS} rows (one per joint), got {len(rows)}", item)
     cols = {k: [] for k in JOINT_KEYS}
+    soft, soft_joints = [], []
     for j, row in enumerate(rows, start=1):
         where = f"[[arm.joints]] joint {j}"
         r.check_keys(row, JOINT_KEYS, where)
@@ -294,7 +350,25 @@ def _read_arm(r: Reader, t: dict):
             raise r.error(f"joint limit 'min' {lo:g} must be below 'max' {hi:g} ({r.angle_units})", where)
         cols["min"].append(r.angle(lo))
         cols["max"].append(r.angle(hi))
+        soft_lo = r.number(row, "soft_min", where, required=False, default=None)
+        soft_hi = r.number(row, "soft_max", where, required=False, default=None)
+        if soft_lo is not None or soft_hi is not None:
+            soft_joints.append(j)
+        soft_lo = lo if soft_lo is None else soft_lo
+        soft_hi = hi if soft_hi is None else soft_hi
+        units = r.angle_units
+        if soft_lo < lo:
+            raise r.error(f"soft limit 'soft_min' {soft_lo:g} is below the mechanical 'min' {lo:g} ({units}): soft "
+                          "limits must lie within the mechanical limits", where)
+        if soft_hi > hi:
+            raise r.error(f"soft limit 'soft_max' {soft_hi:g} is above the mechanical 'max' {hi:g} ({units}): soft "
+                          "limits must lie within the mechanical limits", where)
+        if not soft_lo < soft_hi:
+            raise r.error(f"soft limit 'soft_min' {soft_lo:g} must be below 'soft_max' {soft_hi:g} ({units})", where)
+        soft.append((r.angle(soft_lo), r.angle(soft_hi)))
     limits = np.column_stack([cols["min"], cols["max"]])
+    soft_limits = np.array(soft, dtype=np.float64).reshape(N_JOINTS, 2)
+    soft_limits.flags.writeable = False
     try:
         arm = Arm.from_dh(cols["a"], cols["alpha"], cols["d"], cols["offset"], limits, convention, name=arm_name)
     except InputError as exc:
@@ -341,7 +415,7 @@ def _read_arm(r: Reader, t: dict):
             shapes = tuple(generated_link_shapes(arm.a, arm.alpha, arm.d, convention, index, radius))
             generated.append(body_name)
         links.append(Body(name=body_name, frame=index, shapes=shapes, padding=link_padding, role="link"))
-    return arm, mount, mount_parent, links, generated
+    return arm, mount, mount_parent, links, generated, soft_limits, tuple(soft_joints)
 
 
 # ---------------------------------------------------------------------- frames
@@ -633,4 +707,42 @@ def _read_programs(r: Reader, data: dict, targets: list) -> list:
                 allowance = float(r.length(r.number(mt, "stopping_allowance", where, sign=">=0")))
             moves.append(Move(to=to, motion=motion, branch=branch, stopping_allowance=allowance))
         out.append(Program(name=pname, moves=tuple(moves), source=f"{r.file.name} [[programs]] {k}"))
+    return out
+
+
+# ---------------------------------------------------------------------- protective devices
+def _read_devices(r: Reader, data: dict) -> list:
+    from .standards import protective_device_distance
+
+    out, seen = [], set()
+    for k, dt in enumerate(r.tables(data, "devices", "[[devices]]"), start=1):
+        if "name" not in dt:
+            raise r.error("missing key 'name' (a string)", f"[[devices]] entry {k}")
+        dname = r.string(dt, "name", f"[[devices]] entry {k}", required=True)
+        item = f'device "{dname}"'
+        if dname in seen:
+            raise r.error("two devices have this name", item)
+        seen.add(dname)
+        r.check_keys(dt, DEVICE_KEYS, item)
+        kind = r.string(dt, "kind", item, required=True, choices=DEVICE_KINDS)
+        response = r.number(dt, "response_time", item, sign=">=0")
+        stopping = r.number(dt, "stopping_time", item, sign=">=0")
+        d = None
+        if kind == "perpendicular":
+            if "detection_capability" not in dt:
+                raise r.error("missing key 'detection_capability' (a length > 0): a device of kind 'perpendicular' "
+                              "needs it", item)
+            d = float(r.length(r.number(dt, "detection_capability", item, sign=">0")))
+        elif "detection_capability" in dt:
+            raise r.error(f"key 'detection_capability' applies to kind 'perpendicular' only, got it for {kind!r}", item)
+        points = r.length(r.points(dt, "points", item, 2, 2))
+        if (np.sqrt((np.diff(points, axis=0) ** 2).sum(axis=1)) == 0).any():
+            raise r.error("key 'points' has two equal consecutive points", item)
+        try:  # the standard's own limits (0 < d <= 70 mm for a perpendicular approach)
+            protective_device_distance(response + stopping, None if d is None else float(to_mm(d)), kind)
+        except InputError as exc:
+            raise r.error(f"not a valid ISO 13855 device: {exc.problem}", item) from None
+        points.flags.writeable = False
+        out.append(ProtectiveDevice(dname, kind, float(response), float(stopping), d, points,
+                                    f"{r.file.name} [[devices]] {k}"))
     return out

@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .cell import Cell
-from .clearance import STATUS_NAMES
+from .clearance import STATUS_NAMES, pair_other_name
 from .errors import EXIT_CLEAR, EXIT_FINDING, InputError
 
 CLEAR = "clear"
@@ -237,13 +237,6 @@ def _evaluate(cell, q, *, jobs, progress, prune, chunk=256):
     return ClearanceResult.concatenate(parts), engine_for(cell, prune).pairs
 
 
-def _pair_other_name(pair) -> str:
-    """'zone/panel' for a zone pair (the panel name alone when it already names the zone)."""
-    if not pair.panel or pair.panel == pair.other:
-        return pair.other
-    return pair.panel if pair.panel.startswith(pair.other) else f"{pair.other}/{pair.panel}"
-
-
 def branch_order(sol) -> list:
     """Row order of one pose's solutions: branches by branch code, each followed by its turn variants."""
     reps = sorted((k for k in range(len(sol)) if sol.twin[k] == k), key=lambda k: (int(sol.code[k]), k))
@@ -259,7 +252,21 @@ def solve_targets(cell: Cell) -> list:
     return [cell.arm.ik(T) for T in base_from_flange]
 
 
-def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True) -> CheckResult:
+def run_motions(cell: Cell, program=None, *, prune: bool = True) -> tuple:
+    """Certified sweeps of the cell's programs (all, or the one named), every valid start branch.
+
+    Returns the ``MotionRow`` tuple of ``envelope.sweep.run_sweep``; an empty tuple when the cell has
+    no programs and none is named.
+    """
+    from .clearance import engine_for
+    from .sweep import run_sweep
+
+    if program is None and not cell.programs:
+        return ()
+    return tuple(run_sweep(cell, program, engine=engine_for(cell, prune)))
+
+
+def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True, programs: bool = True) -> CheckResult:
     """Check every target of ``cell`` in every IK branch (turn variants included).
 
     Parameters
@@ -272,6 +279,8 @@ def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True) -
     prune : bool
         Skip exact distance queries that cannot change a status or the worst pair (never changes
         a result; ``False`` computes every pair exactly).
+    programs : bool
+        Also sweep the cell's programs (``run_motions``) into ``CheckResult.motions``.
 
     Returns
     -------
@@ -329,7 +338,7 @@ def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True) -
                 margin = dist - required
                 clearance_status = STATUS_NAMES[int(res.overall)]
                 closest_body = p.body
-                closest_other = _pair_other_name(p)
+                closest_other = pair_other_name(p)
                 wb, wo = res.witness_body[worst], res.witness_other[worst]
                 if clearance_status == INTRUSION and not bool(res.depth_known[worst]):
                     notes.append("overlap, depth unknown")
@@ -364,8 +373,11 @@ def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True) -
             )
             if rep == k:
                 first_row[k] = len(rows) - 1
-    timings["rows_s"] = time.perf_counter() - t2
-    return CheckResult(cell=cell, rows=tuple(rows), warnings=tuple(cell.warnings), timings=timings)
+    t3 = time.perf_counter()
+    timings["rows_s"] = t3 - t2
+    motions = run_motions(cell, prune=prune) if programs else ()
+    timings["sweep_s"] = time.perf_counter() - t3
+    return CheckResult(cell=cell, rows=tuple(rows), motions=motions, warnings=tuple(cell.warnings), timings=timings)
 
 
 def solve_pose(cell: Cell, xyz_mm, angles_deg, *, frame: str = "world", convention: str = "fixed-xyz") -> dict:

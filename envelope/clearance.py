@@ -123,6 +123,13 @@ class Pair:
     allowed: bool
 
 
+def pair_other_name(pair) -> str:
+    """'zone/panel' for a zone pair (the panel name alone when it already names the zone)."""
+    if not pair.panel or pair.panel == pair.other:
+        return pair.other
+    return pair.panel if pair.panel.startswith(pair.other) else f"{pair.other}/{pair.panel}"
+
+
 @dataclass(frozen=True, eq=False)
 class ClearanceResult:
     """Clearance of one configuration (pair arrays ``(P,)``) or a batch (``(n, P)``).

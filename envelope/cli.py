@@ -174,6 +174,52 @@ def check(cell: Path, out: Path, jobs: int, as_json: bool) -> None:
 
 @main.command(epilog=CAUTION_HELP)
 @click.argument("cell", type=click.Path(path_type=Path))
+@click.option("--program", default=None, help="Sweep only this program (default: every program).")
+@click.option("--out", "out", type=click.Path(path_type=Path), default=Path("envelope-sweep"),
+              show_default=True, help="Folder for the motion table and report.")
+@click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary on stdout.")
+@_guarded
+def sweep(cell: Path, program: str | None, out: Path, as_json: bool) -> None:
+    """Certify the motions of CELL's programs, in every valid start branch (no target rows).
+
+    Each move is swept by conservative advancement: the reported clearance is a certified lower
+    bound over the whole move, with the stopping allowance added to the required clearance.
+    Exit codes as for check: 0 every motion clear, 1 a finding, 2 bad input.
+    """
+    from .cell import load_cell
+    from .check import CheckResult, run_motions
+    from .errors import ProgramError
+    from .report import write_report
+
+    cell_model = load_cell(cell)
+    motions = run_motions(cell_model, program)
+    if not motions:
+        raise ProgramError("the cell has no programs to sweep", file=cell, item="programs")
+    result = CheckResult(cell=cell_model, rows=(), motions=motions, warnings=tuple(cell_model.warnings))
+    files = write_report(result, out)
+    if as_json:
+        click.echo(json.dumps(_json_summary(result, files), indent=2, sort_keys=True))
+    else:
+        click.echo(f"verdict: {result.verdict.upper()}  ({len(motions)} move x branch rows)")
+        for m in sorted(motions, key=lambda m: m.min_clearance - m.required)[:10]:
+            click.echo(f"  {_motion_text(m)}")
+        click.echo(f"report: {files['report.html']}")
+    sys.exit(result.exit_code)
+
+
+def _motion_text(m) -> str:
+    from .units import to_mm
+
+    where = f"at s={m.where:.3f}" if m.where == m.where else ""
+    return (
+        f"{m.program} move {m.move} {m.from_target} -> {m.to_target} ({m.motion}, {m.branch}): {m.status}, "
+        f"clearance >= {to_mm(m.min_clearance):.1f} mm (required {to_mm(m.required):.1f}) {where} "
+        f"{m.closest_body} - {m.closest_other}"
+    ).rstrip()
+
+
+@main.command(epilog=CAUTION_HELP)
+@click.argument("cell", type=click.Path(path_type=Path))
 @click.option("--pose", required=True, metavar='"X Y Z RX RY RZ"',
               help="TCP pose: position in mm and Euler angles in degrees (see --convention).")
 @click.option("--frame", default="world", show_default=True, help="Frame the pose is given in.")

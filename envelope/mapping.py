@@ -270,6 +270,30 @@ def parse_orientations(text: str) -> np.ndarray:
     return np.array(rows)
 
 
+def parse_step(text: str):
+    """``"25"`` or ``"25,25,50"`` (mm) as a float or a ``(3,)`` array (validated by ``make_grid``)."""
+    vals = [v.strip() for v in str(text).split(",")]
+    try:
+        nums = [float(v) for v in vals]
+    except ValueError:
+        raise InputError(f"step must be one number or 3 comma-separated numbers in mm, got {text!r}",
+                         item="--step") from None
+    if len(nums) not in (1, 3):
+        raise InputError(f"step must be one number or 3 comma-separated numbers in mm, got {text!r}", item="--step")
+    return nums[0] if len(nums) == 1 else np.array(nums)
+
+
+def parse_point(text: str) -> np.ndarray:
+    """``"400,0,700"`` (mm) as a ``(3,)`` array (the clear box's centre, ``--point``)."""
+    try:
+        vals = [float(v) for v in str(text).split(",")]
+    except ValueError:
+        vals = []
+    if len(vals) != 3:
+        raise InputError(f"a point is 3 comma-separated numbers x, y, z in mm, got {text!r}", item="--point")
+    return np.array(vals)
+
+
 # ============================================================================ fingerprints
 def _feed(h, obj, skip=("_cache", "targets", "programs", "source", "warnings", "inputs", "_rot")):
     if is_dataclass(obj) and not isinstance(obj, type):
@@ -1097,24 +1121,6 @@ class FastBounds:
         d = cb - ca
         lo = np.sqrt((d * d).sum(-1)) - self.S_radius[a] - self.S_radius[b] - 1e-9
         hi = np.full(lo.shape, np.inf)
-        # support gaps of outer boxes (exact for boxes, capsules, spheres) along the centre direction
-        # and both boxes' axes: a lower bound on the distance of separated convex solids
-        cv = np.flatnonzero(~(self.sp_half | self.sp_mesh))
-        if len(cv):
-            ac, bc = a[cv], b[cv]
-            oa = np.einsum("nsij,sj->nsi", R[:, ac], self.S_oc[ac]) + t[:, ac]
-            ob = np.einsum("nsij,sj->nsi", R[:, bc], self.S_oc[bc]) + t[:, bc]
-            wa = np.einsum("nsij,skj->nski", R[:, ac], self.S_ow[ac])  # (n, m, 3, 3) world half-axes
-            wb = np.einsum("nsij,skj->nski", R[:, bc], self.S_ow[bc])
-            dc = ob - oa
-            u0 = dc / np.maximum(np.sqrt(_dot(dc, dc)), 1e-300)[..., None]
-            U = np.concatenate([u0[:, :, None], _unit_rows(wa), _unit_rows(wb)], axis=2)  # (n, m, 7, 3)
-            sg = np.sign(_dot(U, dc[:, :, None]))
-            U = U * np.where(sg == 0, 1.0, sg)[..., None]
-            ha = _dot(U, oa[:, :, None]) + np.abs(np.einsum("nmdc,nmjc->nmdj", U, wa)).sum(-1) + self.S_or[ac][None, :, None]
-            hb = -_dot(U, ob[:, :, None]) + np.abs(np.einsum("nmdc,nmjc->nmdj", U, wb)).sum(-1) + self.S_or[bc][None, :, None]
-            gap = (-hb - ha).max(axis=-1) - 1e-9
-            lo[:, cv] = np.maximum(lo[:, cv], gap)
         # half-spaces: exact
         for m in np.flatnonzero(self.sp_half):
             hs = self.slots[b[m]]["shape"]
@@ -1124,7 +1130,31 @@ class FastBounds:
             hi[:, m] = val + 1e-9
         return R, t, lo, hi
 
-    def mesh_lower(self, R, t, items, lo):
+    def obb_lower(self, R, t, items, lo):
+        """Raise ``lo`` at ``items`` (convex shape pairs) to the support gap of the shapes' outer boxes
+        (exact for boxes, capsules and spheres) along the centre direction and both boxes' axes: a
+        lower bound on the distance of separated convex solids."""
+        rows, cols = items
+        ac, bc = self.sp_a[cols], self.sp_b[cols]
+        Ra, Rb = R[rows, ac], R[rows, bc]
+        oa = np.einsum("kij,kj->ki", Ra, self.S_oc[ac]) + t[rows, ac]
+        ob = np.einsum("kij,kj->ki", Rb, self.S_oc[bc]) + t[rows, bc]
+        wa = np.einsum("kij,kmj->kmi", Ra, self.S_ow[ac])  # (k, 3, 3) world half-axes (rows)
+        wb = np.einsum("kij,kmj->kmi", Rb, self.S_ow[bc])
+        dc = ob - oa
+        u0 = dc / np.maximum(np.sqrt(_dot(dc, dc)), 1e-300)[:, None]
+        U = np.concatenate([u0[:, None], _unit_rows(wa), _unit_rows(wb)], axis=1)  # (k, 7, 3)
+        sg = np.sign(_dot(U, dc[:, None]))
+        U = U * np.where(sg == 0, 1.0, sg)[..., None]
+        ha = _dot(U, oa[:, None]) + self.S_or[ac][:, None]
+        hb = -_dot(U, ob[:, None]) + self.S_or[bc][:, None]
+        for j in range(3):
+            ha = ha + np.abs(_dot(U, wa[:, None, j]))
+            hb = hb + np.abs(_dot(U, wb[:, None, j]))
+        gap = (-hb - ha).max(axis=-1) - 1e-9
+        lo[rows, cols] = np.where(gap > 0, np.maximum(lo[rows, cols], gap), lo[rows, cols])  # separated only
+
+    def mesh_lower(self, R, t, items, lo, need=None):
         """Raise ``lo`` at ``items`` (body shape against a zone mesh) to a bound the engine's value never
         goes below: the part of its own mesh bound that does not use python-fcl (per triangle, the best
         support gap along the triangle normal, both signs, and the direction from the body's centre,
@@ -1134,11 +1164,17 @@ class FastBounds:
         from . import geometry as gm
 
         rows, cols = items
+        if need is None:
+            need = np.full(len(rows), np.inf)
         for m in np.unique(cols):
             sel = cols == m
             r = rows[sel]
+            want = need[sel]  # the distance that must be certified: triangles whose sphere bound is
+            # already above it need no support gaps (their sphere bound is used as it is)
             a, b = int(self.sp_a[m]), int(self.sp_b[m])
             zone = self.slots[b]
+            if not hasattr(self, "_V"):
+                self._V, self._r = self._vertex_data()
             if "tris" not in zone:
                 tris = np.asarray(zone["shape"].vertices)[np.asarray(zone["shape"].faces)]
                 nrm = np.cross(tris[:, 1] - tris[:, 0], tris[:, 2] - tris[:, 0])
@@ -1154,21 +1190,22 @@ class FastBounds:
             dc = cen[None] - ca[:, None]  # (k, T, 3)
             ndc = np.sqrt((dc * dc).sum(-1))
             dc_u = np.where((ndc > 1e-300)[..., None], dc / np.where(ndc > 1e-300, ndc, 1.0)[..., None], [0.0, 0.0, 1.0])
-            k, T = dc.shape[:2]
-            D = np.stack([np.broadcast_to(nrm, (k, T, 3)), np.broadcast_to(-nrm, (k, T, 3)), dc_u], axis=2)  # (k, T, 3, 3)
-            local = D @ Ra[:, None]  # (k, T, 3, 3) rows: R^T u
-            V = self._V[a] if hasattr(self, "_V") else None
-            if V is None:
-                self._V, self._r = self._vertex_data()
-                V = self._V[a]
-            h_loc = (local @ V.T).max(axis=-1)
-            if self._r[a] > 0:
-                h_loc = h_loc + self._r[a]
-            h = h_loc + (D @ ta[:, None, :, None])[..., 0]
-            tri_min = (D @ np.swapaxes(tris, 1, 2)).min(axis=-1)
-            gap = (tri_min - h).max(axis=-1)  # (k, T)
-            sph = ndc - rt[None] - body["radius"]
-            bound = np.maximum(gap, sph).min(axis=1) - 1e-9
+            sph = ndc - rt[None] - body["radius"]  # (k, T)
+            cand = sph < want[:, None]
+            bound = np.where(cand, np.inf, sph).min(axis=1)
+            kk, tt = np.nonzero(cand)
+            if len(kk):
+                if "hull" not in body:
+                    body["hull"] = np.asarray(body["shape"].vertices) if isinstance(body["shape"], gm.Convex) else self._V[a]
+                V = body["hull"]
+                D = np.stack([nrm[tt], -nrm[tt], dc_u[kk, tt]], axis=1)  # (c, 3, 3) directions
+                local = D @ Ra[kk]  # rows: R^T u
+                h = (local @ V.T).max(axis=-1) + self._r[a] + (D @ ta[kk][:, :, None])[..., 0]
+                tri_min = (D @ np.swapaxes(tris[tt], 1, 2)).min(axis=-1)
+                gap = (tri_min - h).max(axis=-1)
+                val = np.maximum(gap, sph[kk, tt])
+                np.minimum.at(bound, kk, val)
+            bound = bound - 1e-9
             new = np.maximum(lo[r, m], bound)
             pad = self.pad[m]
             # inside tests, as the engine makes them where the bound is positive
@@ -1311,6 +1348,7 @@ class FastBounds:
         if self.n_pairs == 0:
             inf = np.full(N, np.inf)
             return inf, inf, np.ones(N, bool), 0
+        self.stats = {"mesh": 0, "blocked": 0, "rounds": 0, "undecided": 0}
         R, t, lo_d, hi_d = self.bounds(q)
         # the engine's value is only known not to go below these bounds for separated solids (and,
         # for zone meshes, beyond the padding); elsewhere it is unbounded below
@@ -1320,6 +1358,7 @@ class FastBounds:
         exact = np.zeros(lo_d.shape, bool)
         exact[:, self.sp_half] = True
         tried = exact.copy()
+        boxed = np.zeros(lo_d.shape, bool)
         engine_rows = np.zeros(N, bool)
         uniq, inv = np.unique(owner, return_inverse=True)
 
@@ -1343,6 +1382,13 @@ class FastBounds:
             if not need.any():
                 break
             blocked = (need & tried).any(axis=1)  # a mesh pair or an unconverged pair decides: engine
+            self.stats["mesh"] += int(((need & tried & self.sp_mesh).any(axis=1) & ~engine_rows).sum())
+            if getattr(self, "debug", False):
+                import collections
+                rr, cc = np.nonzero(need & tried & ~engine_rows[:, None])
+                self.stats.setdefault("who", collections.Counter()).update(
+                    (self.names[c], bool(self.sp_mesh[c]), bool(np.isneginf(lo_m[r_, c]))) for r_, c in zip(rr, cc))
+            self.stats["blocked"] += int((blocked & ~engine_rows).sum())
             engine_rows |= blocked
             need &= ~blocked[:, None]
             # the three lowest bounds of every configuration first: the worst pair is usually among them
@@ -1356,16 +1402,35 @@ class FastBounds:
                 break
             mesh = self.sp_mesh[cols]
             if mesh.any():  # zone meshes: a lower bound only (the engine decides if they still matter)
-                self.mesh_lower(R, t, (rows[mesh], cols[mesh]), lo_d)
-            if (~mesh).any():
-                exact[rows[~mesh], cols[~mesh]] = self.refine(R, t, (rows[~mesh], cols[~mesh]), lo_d, hi_d, tol)
-            tried[rows, cols] = True
+                rm, cm = rows[mesh], cols[mesh]
+                self.mesh_lower(R, t, (rm, cm), lo_d, need=thr[rm] + off[cm] + tol)
+            cv = ~mesh & ~boxed[rows, cols]
+            if cv.any():  # outer-box gaps first: often enough, and far cheaper than the iteration
+                rb, cb = rows[cv], cols[cv]
+                self.obb_lower(R, t, (rb, cb), lo_d)
+                boxed[rb, cb] = True
+                lo_m = lo_d - off
+                still = lo_m[rb, cb] < thr[rb]
+                skip = np.zeros(len(rows), bool)
+                skip[np.flatnonzero(cv)[~still]] = True
+                mesh_or_skip = mesh | skip
+            else:
+                mesh_or_skip = mesh
+            g = ~mesh_or_skip
+            if g.any():
+                exact[rows[g], cols[g]] = self.refine(R, t, (rows[g], cols[g]), lo_d, hi_d, tol)
+                tried[rows[g], cols[g]] = True
+            tried[rows[mesh], cols[mesh]] = True
         else:
             lo_m, thr = state()
-            engine_rows |= ((lo_m < thr[:, None]) & ~exact).any(axis=1)
+            more = ((lo_m < thr[:, None]) & ~exact).any(axis=1) & ~engine_rows
+            self.stats["rounds"] += int(more.sum())
+            engine_rows |= more
         lo_m, hi_m = lo_d - off, hi_d - off
         W_lo, W_hi = lo_m.min(axis=1), hi_m.min(axis=1)
-        engine_rows |= (W_lo < 0) & (W_hi >= 0)  # the verdict is not decided: the engine's
+        und = (W_lo < 0) & (W_hi >= 0) & ~engine_rows
+        self.stats["undecided"] += int(und.sum())
+        engine_rows |= und  # the verdict is not decided: the engine's
         clear = W_lo >= 0
         idx = np.flatnonzero(engine_rows)
         if len(idx):

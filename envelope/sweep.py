@@ -18,8 +18,9 @@ single and multiple articulated robots in complex environments", IEEE T-RO 21(3)
   the path fraction ``s``). From a configuration whose clearance lower bound is ``d_p``, the next
   configuration is the farthest ``s'`` with ``L_p(s') - L_p(s) <= d_p - level_p`` for every pair: no
   point can come closer than ``level_p`` in between. ``level_p`` is the required clearance (plus the
-  stopping allowance and, for linear moves, the path deviation) while the pair is above it, 0 once it
-  is below (then contact is still excluded), and none once it touches.
+  stopping allowance and, for linear moves, the path deviation) up to the first point where some pair
+  comes within ``tol`` of it, then 0 (contact is still excluded); a pair within ``tol`` of its level
+  no longer limits the step (the smallest step is ``tol`` of point motion).
 - Between two samples with bounds ``a``, ``b`` and displacement ``D`` the clearance is at least
   ``min(a, b, (a + b - D) / 2)``; the intervals with the lowest bound are bisected until the certified
   minimum is within ``max(bound_tol, bound_rel * |margin|)`` of the smallest sampled margin.
@@ -35,7 +36,7 @@ import numpy as np
 
 from . import geometry as g
 from .cellshapes import suggest
-from .clearance import engine_for
+from .clearance import engine_for, pair_other_name
 from .errors import InputError, ProgramError
 from .kinematics.branches import BRANCH_LABELS
 
@@ -348,7 +349,7 @@ class _SweepResult:
     first_violation: float
     queries: int
     capped: bool
-    contact: bool  # some pair's certified bound <= 0
+    contact: bool  # contact not excluded: a sampled bound < tol or an interval bound <= 0
 
 
 def _certified_sweep(engine, path: _Path, required: np.ndarray, *, tol: float, bound_tol: float,
@@ -557,7 +558,8 @@ def linear_path(cell, q_start, world_from_tcp_end, coef_max: np.ndarray, *, path
         return cand[k], int(sol.code[i, k])
 
     if code < 0:
-        return _LinearPath(None, 0.0, -1, -1, 0.0, np.nan, "", "the start configuration has no IK branch", np.nan, "", 0)
+        return _LinearPath(None, 0.0, -1, -1, 0.0, np.nan, "", "the start configuration has no IK branch", np.nan,
+                           "", 0)
 
     # 1. samples along the line, continuous
     grid = np.linspace(0.0, 1.0, n + 1)
@@ -686,7 +688,12 @@ def linear_path(cell, q_start, world_from_tcp_end, coef_max: np.ndarray, *, path
         return _LinearPath(None, s_end, code, end_code, deviation, np.nan, singular, reason, np.nan, "", counter[0])
     speed = (np.abs(np.diff(Q, axis=0)) / np.diff(S)[:, None]).max(axis=1)
     straight = float(np.abs(Q[-1] - Q[0]).max() / max(S[-1] - S[0], 1e-300))
-    peak = float(speed.max() / straight) if straight > 1e-9 else float(speed.max() / max(speed[0], speed[-1], 1e-12))
+    if speed.max() < 1e-9:
+        peak = 1.0  # no joint moves (beyond rounding)
+    elif straight > 1e-9:
+        peak = float(speed.max() / straight)
+    else:
+        peak = float(speed.max() / max(speed[0], speed[-1], 1e-12))
     # joint limits along the polyline
     lo_l, hi_l = arm.limits[:, 0], arm.limits[:, 1]
     out = (Q < lo_l) | (Q > hi_l)
@@ -719,7 +726,8 @@ def _as_q(q, what):
 
 def sweep_move(cell, q_start, end, *, motion: str = "joint", allowance: float | None = None, engine=None,
                tol: float = TOL, bound_tol: float = BOUND_TOL, bound_rel: float = BOUND_REL,
-               path_tol: float = PATH_TOL, max_queries: int = MAX_QUERIES, program: str = "", move: int = 0, from_target: str = "",
+               path_tol: float = PATH_TOL, max_queries: int = MAX_QUERIES, program: str = "", move: int = 0,
+               from_target: str = "",
                to_target: str = "", branch: str | None = None) -> MotionRow:
     """Sweep one move and certify its clearance.
 
@@ -764,7 +772,6 @@ def sweep_move(cell, q_start, end, *, motion: str = "joint", allowance: float | 
     start_label = branch if branch is not None else label_of(_code_of(arm, arm.fk(q_start), q_start))
     common = dict(program=program, move=move, from_target=from_target, to_target=to_target, motion=motion,
                   allowance=allowance, q_start=q_start)
-    lin = None
     if motion == "joint":
         q_end = _as_q(end, "q_end")
         path = _Path(np.array([0.0, 1.0]), np.stack([q_start, q_end]))
@@ -802,7 +809,8 @@ def sweep_move(cell, q_start, end, *, motion: str = "joint", allowance: float | 
 
     if path is None:
         return MotionRow(**common, branch=start_label, end_branch=end_label, status=UNREACHABLE,
-                         min_clearance=np.nan, required=np.nan, gap=np.nan, where=np.nan, q_at_min=nan6, closest_body="",
+                         min_clearance=np.nan, required=np.nan, gap=np.nan, where=np.nan, q_at_min=nan6,
+                         closest_body="",
                          closest_other="", first_violation=np.nan, limit_violation=limit_s, peak_speed_ratio=peak,
                          singular_crossed=singular, queries=0, ik_samples=ik_samples, path_deviation=deviation,
                          max_displacement=0.0, uniform_samples=0, q_end=nan6, seconds=time.perf_counter() - t0,
@@ -823,7 +831,7 @@ def sweep_move(cell, q_start, end, *, motion: str = "joint", allowance: float | 
         p = engine.pairs[res.pair]
         min_clear = res.lb + float(required[res.pair])
         req = float(required[res.pair])
-        body, other = p.body, p.other + (f"/{p.panel}" if p.panel else "")
+        body, other = p.body, pair_other_name(p)
         where = res.where * scale
         q_at_min = unit.at(res.where)[0]
         Mg = np.where(active, res.d - required, np.inf)
@@ -850,7 +858,8 @@ def sweep_move(cell, q_start, end, *, motion: str = "joint", allowance: float | 
     if s_end < 1.0 and status != UNREACHABLE:
         notes.append(f"swept up to path fraction {s_end:.4f} only")
     return MotionRow(**common, branch=start_label, end_branch=end_label, status=status, min_clearance=float(min_clear),
-                     required=req, gap=float(res.sampled - res.lb) if res.pair >= 0 else np.nan, where=float(where), q_at_min=q_at_min, closest_body=body, closest_other=other,
+                     required=req, gap=float(res.sampled - res.lb) if res.pair >= 0 else np.nan,
+                     where=float(where), q_at_min=q_at_min, closest_body=body, closest_other=other,
                      first_violation=float(first_violation), limit_violation=float(limit_s),
                      peak_speed_ratio=float(peak), singular_crossed=singular, queries=int(res.queries),
                      ik_samples=int(ik_samples), path_deviation=float(deviation), max_displacement=max_disp,
@@ -976,7 +985,7 @@ def run_sweep(cell, program=None, *, engine=None, tol: float = TOL, bound_tol: f
                     rows.append(row)
                     if not np.isfinite(row.q_end).all():
                         stopped = f"not run: move {m} did not reach its target"
-                    elif row.status == OUTSIDE_LIMITS or (row.status != UNREACHABLE and np.isfinite(row.limit_violation)):
+                    elif np.isfinite(row.limit_violation):
                         stopped = f"not run: move {m} leaves the joint limits"
                     else:
                         q, label = row.q_end, row.end_branch
@@ -993,7 +1002,8 @@ def run_sweep(cell, program=None, *, engine=None, tol: float = TOL, bound_tol: f
                 pool = inside or cand
                 k = min(pool, key=lambda i: (np.abs(tsol.q[i] - q).max(), np.abs(tsol.q[i] - q).sum()))
                 row = sweep_move(cell, q, tsol.q[k], motion="joint", allowance=allowance, engine=engine, tol=tol,
-                                 bound_tol=bound_tol, bound_rel=bound_rel, path_tol=path_tol, program=prog.name, move=m, from_target=frm,
+                                 bound_tol=bound_tol, bound_rel=bound_rel, path_tol=path_tol, program=prog.name,
+                                 move=m, from_target=frm,
                                  to_target=mv.to, branch=label)
                 rows.append(row)
                 if not inside:

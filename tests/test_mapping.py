@@ -382,6 +382,13 @@ def test_parse_region_and_orientations():
         M.parse_region("0:1,a:b,0:1")
     with pytest.raises(InputError, match=r"3 comma-separated Euler angles"):
         M.parse_orientations("180,0")
+    assert M.parse_step("25") == 25.0
+    np.testing.assert_allclose(M.parse_step("25, 25,50"), [25, 25, 50])
+    with pytest.raises(InputError, match=r"one number or 3 comma-separated numbers"):
+        M.parse_step("25,25")
+    np.testing.assert_allclose(M.parse_point("400, 0, 700"), [400, 0, 700])
+    with pytest.raises(InputError, match=r"3 comma-separated numbers x, y, z"):
+        M.parse_point("400,0")
 
 
 def test_box_centre_must_be_a_grid_point(grid):

@@ -59,9 +59,10 @@ def tcp_pose():
     return T
 
 
-def make_cell(zones=(), *, arm=None, allowance=0.0, targets=(), programs=(), self_clearance=0.005):
+def make_cell(zones=(), *, arm=None, allowance=0.0, targets=(), programs=(), self_clearance=0.005, mount=None):
     tool = Tool(tcp_pose(), (Body("tool", 6, (Capsule([0, 0, 0.03], [0, 0, TOOL_LENGTH], 0.03),), role="tool"),))
-    return Cell(name="sweep test cell", arm=arm or invented_arm(), world_from_base=np.eye(4), links=link_bodies(),
+    world_from_base = np.eye(4) if mount is None else mount
+    return Cell(name="sweep test cell", arm=arm or invented_arm(), world_from_base=world_from_base, links=link_bodies(),
                 tool=tool, zones=tuple(zones), targets=tuple(targets), programs=tuple(programs),
                 self_pairs_allowed=ALLOWED, self_clearance=self_clearance, stopping_allowance=allowance)
 
@@ -226,6 +227,8 @@ def test_displacement_bound_against_brute_force_point_motion():
 
 
 def test_self_pair_coefficients_use_only_the_joints_between():
+    # Two bodies of one chain move relative to each other only by the joints between them
+    # (Schwarzer, Saha & Latombe 2005, self-collision of articulated robots).
     cell = make_cell((FLOOR,))
     engine = ClearanceEngine(cell)
     C = pair_coefficients(engine)
@@ -243,10 +246,20 @@ def test_self_pair_coefficients_use_only_the_joints_between():
 
 
 # ------------------------------------------------------------------------------------------ certified bound
-def _near_zone_cell(rng, q_mid):
+def _mount(rng):
+    """A random mount pose (world_from_base): the arm turned about z and moved, on a plinth."""
+    from scipy.spatial.transform import Rotation
+
+    T = np.eye(4)
+    T[:3, :3] = Rotation.from_euler("z", rng.uniform(-np.pi, np.pi)).as_matrix()
+    T[:3, 3] = [rng.uniform(-1, 1), rng.uniform(-1, 1), 0.0]
+    return T
+
+
+def _near_zone_cell(rng, q_mid, mount=None):
     """Zones placed around the tool and forearm at q_mid, so that moves through q_mid pass near them."""
-    cell = make_cell()
-    F = cell.arm.frames(q_mid)
+    cell = make_cell(mount=mount)
+    F = cell.world_from_base @ cell.arm.frames(q_mid)
     tip = (F[6] @ tcp_pose())[:3, 3]
     elbow = F[3, :3, 3]
     u = rng.normal(size=3)
@@ -258,7 +271,7 @@ def _near_zone_cell(rng, q_mid):
         Zone("ball", "keep-out", (Sphere(tip + u * rng.uniform(0.09, 0.2), 0.05),), 0.05),
         Zone("pole", "fixture", (Capsule(elbow + v * 0.2 - [0, 0, 0.3], elbow + v * 0.2 + [0, 0, 0.3], 0.04),), 0.02),
     ]
-    return make_cell(zones, allowance=rng.choice([0.0, 0.01]))
+    return make_cell(zones, allowance=rng.choice([0.0, 0.01]), mount=mount)
 
 
 def _dense(cell, engine, qs, required):
@@ -299,11 +312,11 @@ def test_certified_bound_never_exceeds_dense_minimum_joint_moves():
     rng = np.random.default_rng(2026)
     n_near = 0
     statuses = set()
-    for _ in range(30):
+    for i in range(30):
         q_mid = random_config(rng)
         dq = rng.normal(0, 0.35, 6)
         q0, q1 = q_mid - dq, q_mid + dq
-        cell = _near_zone_cell(rng, q_mid)
+        cell = _near_zone_cell(rng, q_mid, _mount(rng) if i % 3 == 2 else None)
         engine = ClearanceEngine(cell)
         row = sweep_move(cell, q0, q1, engine=engine)
         n = int(np.ceil(row.max_displacement / 5e-4)) + 1
@@ -351,11 +364,11 @@ def test_certified_bound_never_exceeds_dense_minimum_linear_moves():
     # Dense reference on the true line (IK every 0.2 mm of TCP travel and independent distances).
     rng = np.random.default_rng(77)
     done = 0
-    for _ in range(20):
+    for i in range(20):
         q_mid = random_config(rng)
         dq = rng.normal(0, 0.15, 6)
         q0 = q_mid - dq
-        cell = _near_zone_cell(rng, q_mid)
+        cell = _near_zone_cell(rng, q_mid, _mount(rng) if i % 2 else None)
         end = world_tcp(cell, q_mid + dq)
         engine = ClearanceEngine(cell)
         row = sweep_move(cell, q0, end, motion="linear", engine=engine)
@@ -506,6 +519,8 @@ def _program_cell(programs, rng=None):
 
 
 def test_program_rows_per_start_branch_and_branch_kept():
+    # The program rules (one run per valid start branch, a joint move keeps its label, the allowance is
+    # added to zone pairs) are the project's own specification (docs/motions.md), no external source.
     prog = Program("cycle", (Move("a"), Move("b", "joint"), Move("c", "linear"), Move("a", "joint")))
     cell = _program_cell((prog,))
     rows = run_sweep(cell)
@@ -535,6 +550,7 @@ def test_named_branch_and_per_move_allowance():
 
 
 def test_linear_move_cannot_change_branch():
+    # A straight-line move keeps its configuration all the way (common practice, no source).
     prog = Program("p", (Move("b", branch="front-up-pos"), Move("c", "linear", branch="front-up-neg"),
                          Move("a", "joint")))
     rows = run_sweep(_program_cell((prog,)))
@@ -547,13 +563,15 @@ def test_linear_move_cannot_change_branch():
     [
         ((Move("a"), Move("nowhere")), r'program "bad" move 2.*unknown target \'nowhere\''),
         ((Move("a"), Move("bb")), r"unknown target 'bb' \(did you mean 'b'\?\)"),
-        ((Move("a"), Move("b", branch="front-upp-pos")), r"move 2.*unknown branch label 'front-upp-pos' \(did you mean"),
+        ((Move("a"), Move("b", branch="front-upp-pos")),
+         r"move 2.*unknown branch label 'front-upp-pos' \(did you mean"),
         ((Move("a", branch="up"),), r"move 1.*unknown branch label 'up'"),
         ((Move("a"), Move("b", motion="circular")), r"motion must be 'joint' or 'linear', got 'circular'"),
         ((), r"at least one move"),
     ],
 )
 def test_program_errors(moves, match):
+    # Error messages name the program, the move, expected vs actual (house rules, docs/motions.md).
     cell = _program_cell((Program("bad", tuple(moves)),))
     with pytest.raises(ProgramError, match=match):
         run_sweep(cell)
@@ -566,6 +584,8 @@ def test_unknown_program_name():
 
 
 def test_fewer_queries_than_uniform_sampling_on_a_clear_move():
+    # Conservative advancement needs far fewer queries than uniform sampling for the same guarantee
+    # (Schwarzer, Saha & Latombe 2005 report the same kind of saving); uniform count from the same bound.
     cell = make_cell((FLOOR,))
     q0 = np.array([0.8, 0.1, 0.2, 0.5, 0.9, -1.0])
     q1 = np.array([-0.8, 0.3, 0.1, -0.5, 0.6, 1.0])
@@ -583,3 +603,42 @@ def test_move_rows_are_frozen():
     row = sweep_move(make_cell((FLOOR,)), np.zeros(6) + 0.3, np.zeros(6) + 0.4)
     with pytest.raises(dataclasses.FrozenInstanceError):
         row.status = "clear"
+
+
+def test_moves_without_motion_and_pure_reorientation():
+    cell = make_cell((FLOOR,))
+    q = np.array([0.3, 0.2, 0.1, 0.4, 0.8, -0.2])
+    still = sweep_move(cell, q, q)
+    assert still.status == "clear" and still.queries <= 2 and still.max_displacement == 0.0
+    # a linear move to the same pose is no motion either
+    same = sweep_move(cell, q, world_tcp(cell, q), motion="linear")
+    assert same.status == "clear" and np.allclose(same.q_end, q) and same.peak_speed_ratio == 1.0
+    # turning the tool about its own z axis in place: only joint 6 moves, linearly in the path fraction
+    # (slerp about one fixed axis turns at a constant rate; joint 6 turns about that same axis)
+    T = world_tcp(cell, q)
+    turn = np.eye(4)
+    turn[:2, :2] = [[np.cos(0.8), -np.sin(0.8)], [np.sin(0.8), np.cos(0.8)]]
+    row = sweep_move(cell, q, T @ turn, motion="linear")
+    assert row.status == "clear"
+    assert np.allclose(row.q_end, q + [0, 0, 0, 0, 0, 0.8], atol=1e-9)
+    assert row.peak_speed_ratio == pytest.approx(1.0, abs=1e-6)
+    assert row.path_deviation < 1e-9
+
+
+def test_demo_program_sweeps():
+    # The shipped demo cell (invented): every move x valid start branch gets a row.
+    from pathlib import Path
+
+    from envelope.cell import load_cell
+
+    cell = load_cell(Path(__file__).resolve().parents[1] / "envelope" / "demo" / "cell.toml")
+    rows = run_sweep(cell)
+    assert rows
+    for p in cell.programs:
+        mine = [r for r in rows if r.program == p.name]
+        assert mine and len(mine) % (len(p.moves) - 1) == 0
+    for r in rows:
+        assert r.status in STATUS_ORDER
+        if r.queries:
+            assert r.queries < r.uniform_samples
+            assert np.isfinite(r.min_clearance) and r.gap >= 0

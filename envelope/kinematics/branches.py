@@ -100,33 +100,30 @@ def place_in_limits(q: np.ndarray, limits: np.ndarray):
         0 inside the range, else the distance of the nearest equivalent angle to the range.
     """
     two_pi = 2.0 * np.pi
-    placed = np.empty_like(q)
-    within = np.empty(q.shape, bool)
-    excess = np.zeros_like(q)
-    for j in range(q.shape[-1]):
-        lo, hi = limits[j]
-        x = q[..., j]
-        # the solvers' angles (|x| <= 3 pi): two conditional turns suffice; chosen per element, so a
-        # pose's result never depends on the other poses of its batch
-        wrapped = np.where(x > np.pi, x - two_pi, x)
-        wrapped = np.where(wrapped < -np.pi, wrapped + two_pi, wrapped)
-        far = ~(np.abs(x) <= 3 * np.pi)
-        if far.any():
-            wrapped = np.where(far, np.remainder(x + np.pi, two_pi) - np.pi, wrapped)
-        if lo <= -np.pi and hi >= np.pi:  # the whole circle: the wrapped angle is in range, smallest
-            placed[..., j] = wrapped
-            within[..., j] = True
-            continue
-        m_lo = np.ceil((lo - wrapped) / two_pi - 1e-12)
-        m_hi = np.floor((hi - wrapped) / two_pi + 1e-12)
-        ok = m_lo <= m_hi
-        m0 = np.clip(np.round(-wrapped / two_pi), m_lo, m_hi)
-        inside = np.clip(wrapped + two_pi * m0, lo, hi)  # clip only absorbs the 1e-12 slack above
-        cand = wrapped[..., None] + two_pi * np.array([-1.0, 0.0, 1.0])
-        dist = np.maximum(lo - cand, cand - hi).min(-1)
-        placed[..., j] = np.where(ok, inside, wrapped)
-        within[..., j] = ok
-        excess[..., j] = np.where(ok, 0.0, np.maximum(dist, 0.0))
+    # the solvers' angles (|x| <= 3 pi): two conditional turns suffice; chosen per element, so a
+    # pose's result never depends on the other poses of its batch
+    wrapped = np.where(q > np.pi, q - two_pi, q)
+    wrapped = np.where(wrapped < -np.pi, wrapped + two_pi, wrapped)
+    far = ~(np.abs(q) <= 3 * np.pi)
+    if far.any():
+        wrapped = np.where(far, np.remainder(q + np.pi, two_pi) - np.pi, wrapped)
+    lo, hi = limits[:, 0], limits[:, 1]
+    part = ~((lo <= -np.pi) & (hi >= np.pi))  # joints whose range is not the whole circle
+    if not part.any():  # the wrapped angle is in range, and the smallest
+        return wrapped, np.ones(q.shape, bool), np.zeros_like(q)
+    lo, hi, w = lo[part], hi[part], wrapped[..., part]
+    m_lo = np.ceil((lo - w) / two_pi - 1e-12)
+    m_hi = np.floor((hi - w) / two_pi + 1e-12)
+    ok = m_lo <= m_hi
+    m0 = np.clip(np.round(-w / two_pi), m_lo, m_hi)
+    inside = np.clip(w + two_pi * m0, lo, hi)  # clip only absorbs the 1e-12 slack above
+    # distance of the nearest of w - 2 pi, w, w + 2 pi to the range
+    dist = np.minimum(np.maximum(lo - w, w - hi), np.maximum(lo - (w + two_pi), (w + two_pi) - hi))
+    dist = np.minimum(dist, np.maximum(lo - (w - two_pi), (w - two_pi) - hi))
+    placed, within, excess = wrapped.copy(), np.ones(q.shape, bool), np.zeros_like(q)
+    placed[..., part] = np.where(ok, inside, w)
+    within[..., part] = ok
+    excess[..., part] = np.where(ok, 0.0, np.maximum(dist, 0.0))
     return placed, within, excess
 
 

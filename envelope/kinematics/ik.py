@@ -352,20 +352,110 @@ def wrist_centre_of(arm, theta123: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return f.p + ch.d[4] * f.z, o2
 
 
+GAP_GRID = 36
+"""Grid steps per joint (joints 1-3) for the start points of the nearest-reachable-wrist-centre search."""
+GAP_STARTS = 5
+GAP_ITERATIONS = 200
+GAP_CHUNK = 16
+"""Wrist centres per pass of the grid search (bounds its (chunk, GAP_GRID ** 3) temporaries)."""
+
+
+def _wrist_centre_grid(arm) -> tuple[np.ndarray, np.ndarray]:
+    """Joint grid ``(m, 3)`` and its wrist centres ``(3, m)`` (one contiguous row per coordinate), cached."""
+    if "wc_grid" not in arm._cache:
+        g = np.linspace(-np.pi, np.pi, GAP_GRID + 1)[:-1]
+        grid = np.stack(np.meshgrid(g, g, g, indexing="ij"), -1).reshape(-1, 3)
+        pts, _ = wrist_centre_of(arm, grid)
+        arm._cache["wc_grid"] = (grid, np.ascontiguousarray(pts.T))
+    return arm._cache["wc_grid"]
+
+
+def _wrist_centre_derivatives(arm, t: np.ndarray):
+    """Wrist centre ``w`` ``(..., 3)``, ``o_2``, ``J = d w / d theta_1..3`` ``(..., 3, 3)`` (columns) and the
+    second derivatives ``(..., 3, 3, 3)`` for DH angles ``(..., 3)``.
+
+    Column k of J is ``z_k x (w - o_k)``; ``d^2 w / d theta_j d theta_k = z_min(j,k) x J_max(j,k)`` (a
+    revolute chain: joint j turns everything distal to it).
+    """
+    from .chain import Frame
+
+    ch = arm.chain
+    f = Frame.identity(t.shape[:-1]).link(ch.d[0], ch.a[0], ch.alpha[0])
+    pts, axes = [], []
+    for k in range(3):
+        pts.append(f.p)
+        axes.append(np.broadcast_to(f.z, t.shape[:-1] + (3,)))
+        f.rz(np.cos(t[..., k]), np.sin(t[..., k])).link(ch.d[k + 1], ch.a[k + 1], ch.alpha[k + 1])
+    w = f.p + ch.d[4] * f.z
+    cols = [np.cross(z, w - o) for z, o in zip(axes, pts)]
+    H = np.empty(t.shape[:-1] + (3, 3, 3))
+    for j in range(3):
+        for k in range(j, 3):
+            H[..., j, k, :] = H[..., k, j, :] = np.cross(axes[j], cols[k])
+    return w, pts[1], np.stack(cols, -1), np.moveaxis(H, -1, -3)
+
+
+def wrist_centre_gaps(arm, wc: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``(m,)`` distances (m) from wrist centres ``wc`` ``(m, 3)`` to the nearest reachable wrist centre,
+    and ``(m,)`` bool: beyond reach (see ``wrist_centre_gap``).
+
+    The nearest point is found from the 5 nearest points of a 36^3 grid over joints 1-3, refined by
+    damped Newton steps on ``|w(theta) - wc|^2`` with its exact gradient and Hessian (the nearest point
+    of an unreachable centre is a stretched or folded arm, where Gauss-Newton alone converges slowly).
+    Row by row, so a centre's result does not depend on the others in the call.
+    """
+    wc = np.asarray(wc, dtype=np.float64).reshape(-1, 3)
+    m = len(wc)
+    grid, pts = _wrist_centre_grid(arm)
+    starts = np.empty((m, GAP_STARTS, 3))
+    for i in range(0, m, GAP_CHUNK):
+        c = wc[i : i + GAP_CHUNK]
+        d2 = (pts[0] - c[:, 0:1]) ** 2 + (pts[1] - c[:, 1:2]) ** 2 + (pts[2] - c[:, 2:3]) ** 2
+        near = np.argpartition(d2, GAP_STARTS, axis=1)[:, :GAP_STARTS]
+        near = np.take_along_axis(near, np.argsort(np.take_along_axis(d2, near, 1), axis=1, kind="stable"), 1)
+        starts[i : i + GAP_CHUNK] = grid[near]
+    t = starts.reshape(-1, 3)
+    target = np.repeat(wc, GAP_STARTS, axis=0)
+
+    def model(tt, tgt):
+        w, _, J, H2 = _wrist_centre_derivatives(arm, tt)
+        r = w - tgt
+        g = np.einsum("nij,ni->nj", J, r)
+        H = np.einsum("nij,nik->njk", J, J) + np.einsum("ni,nijk->njk", r, H2)
+        return np.einsum("ni,ni->n", r, r), g, H
+
+    cost, g, H = model(t, target)
+    lam = np.full(len(t), 1e-9)
+    act = np.arange(len(t))
+    for _ in range(GAP_ITERATIONS):
+        if act.size == 0:
+            break
+        # saddle-free: the Hessian's eigenvalues taken by magnitude, plus Levenberg-Marquardt damping
+        ev, V = np.linalg.eigh(H[act])
+        ev = np.abs(ev) + lam[act, None] * (1.0 + np.abs(ev).max(-1))[:, None]
+        step = -np.einsum("nij,nj->ni", V, np.einsum("nji,nj->ni", V, g[act]) / ev)
+        tn = t[act] + step
+        cn, gn, Hn = model(tn, target[act])
+        better = cn < cost[act]
+        idx = act[better]
+        t[idx], cost[idx], g[idx], H[idx] = tn[better], cn[better], gn[better], Hn[better]
+        lam[act] = np.where(better, np.maximum(lam[act] * 0.1, 1e-15), lam[act] * 10.0)
+        small = np.abs(step).max(-1) < 1e-13
+        act = act[~(small | (lam[act] > 1e6))]
+    cost = cost.reshape(m, GAP_STARTS)
+    best = np.argmin(cost, axis=1)
+    t_best = t.reshape(m, GAP_STARTS, 3)[np.arange(m), best]
+    w_star, o2, _, _ = _wrist_centre_derivatives(arm, t_best)
+    gap = np.sqrt(np.einsum("ij,ij->i", w_star - wc, w_star - wc))
+    beyond = np.linalg.norm(wc - o2, axis=-1) > np.linalg.norm(w_star - o2, axis=-1)
+    return gap, beyond
+
+
 def wrist_centre_gap(arm, wc: np.ndarray) -> tuple[float, bool]:
     """Distance (m) from ``wc`` to the nearest reachable wrist centre, and whether it lies beyond reach.
 
     Beyond reach means farther from the shoulder point ``o_2`` than the nearest reachable point is
     (measured at the joint values of that point); otherwise it is in an inner unreachable region.
     """
-    from scipy.optimize import least_squares  # scipy: the local refinement of the nearest point
-
-    g = np.linspace(-np.pi, np.pi, 37)[:-1]
-    grid = np.stack(np.meshgrid(g, g, g, indexing="ij"), -1).reshape(-1, 3)
-    pts, _ = wrist_centre_of(arm, grid)
-    best = grid[np.argsort(np.linalg.norm(pts - wc, axis=-1))[:5]]
-    sols = [least_squares(lambda t: wrist_centre_of(arm, t)[0] - wc, b, xtol=1e-15, ftol=1e-15, gtol=1e-15) for b in best]
-    s = min(sols, key=lambda r: r.cost)
-    w_star, o2 = wrist_centre_of(arm, s.x)
-    gap = float(np.linalg.norm(w_star - wc))
-    return gap, bool(np.linalg.norm(wc - o2) > np.linalg.norm(w_star - o2))
+    gap, beyond = wrist_centre_gaps(arm, np.asarray(wc, dtype=np.float64)[None])
+    return float(gap[0]), bool(beyond[0])

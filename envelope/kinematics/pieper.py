@@ -394,7 +394,8 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
     # then coincide (or, with axes 4 and 6 aligned, only t4 + t6 is fixed): keep one representative
     wdet = np.abs(sa4 * sa5) * sw
     singular_w = wdet < WRIST_SINGULAR_TOL
-    c5, s5 = np.cos(t5), np.sin(t5)
+    ca5w, sa5w = np.cos(acw), np.sin(acw)  # cos is even and sin odd: the second wrist solution's follow
+    c5, s5 = np.stack([ca5w, ca5w], -1), np.stack([sa5w, -sa5w], -1)
     vx5 = sa5 * s5
     vyy, vzz = -sa5 * c5, ca5
     vy5 = vyy * ca4 - vzz * sa4
@@ -431,7 +432,7 @@ def solve(model: PieperModel, base_from_flange: np.ndarray) -> RawSolution:
     w4 = np.broadcast_to(wc[:, None, :], (n, 4, 3))
     code4 = arm_codes(w4, o1, z1, x1, o2, z2, o3)
     am = arm_measures(w4, o1, z1, o2, z2, o3, z3)
-    wsign = -sa4 * sa5 * np.sin(t5).reshape(n, N_SLOTS)  # (z4 x z6) . z5
+    wsign = -sa4 * sa5 * s5.reshape(n, N_SLOTS)  # (z4 x z6) . z5
     code = (np.repeat(code4, 2, axis=1) + (wsign < 0)).astype(np.int8)
     measure = np.empty((n, N_SLOTS, 3))
     measure[..., 0] = np.repeat(wdet, 2, axis=1)
