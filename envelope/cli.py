@@ -14,7 +14,7 @@ from pathlib import Path
 import click
 
 from . import __version__
-from .errors import EXIT_BAD_INPUT, EXIT_CLEAR, EXIT_INTERNAL, EnvelopeError, InputError
+from .errors import EXIT_BAD_INPUT, EXIT_CLEAR, EXIT_FINDING, EXIT_INTERNAL, EnvelopeError, InputError
 
 CAUTION_HELP = (
     "CAUTION: a design aid for pre-checking zones and clearances. It does not replace the risk "
@@ -103,10 +103,13 @@ def _summary_line(result) -> str:
     return f"verdict: {result.verdict.upper()}  ({len(result.rows)} target x branch rows: {parts})"
 
 
-def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool):
+def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool, pitch_mm: float = 20.0):
+    import dataclasses
+
     from .cell import load_cell
     from .check import run_check
     from .report import write_report
+    from .spacecheck import run_space_check, write_space_outputs
 
     cell = load_cell(cell_path)
     progress = _Progress("checking")
@@ -114,11 +117,15 @@ def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool):
         result = run_check(cell, jobs=jobs, progress=progress)
     finally:
         progress.close()
+    space = run_space_check(cell, result=result, pitch=_pitch_metres(pitch_mm))
+    result = dataclasses.replace(result, space=space)
     files = write_report(result, out)
+    files.update(write_space_outputs(space, out))
     if as_json:
         click.echo(json.dumps(_json_summary(result, files), indent=2, sort_keys=True))
     else:
         click.echo(_summary_line(result))
+        click.echo(_space_line(space))
         worst = [i for i in result.worst_first() if result.rows[i].twin_of < 0]
         for row_index in worst[:10]:
             row = result.rows[row_index]
@@ -127,6 +134,20 @@ def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool):
             click.echo(f"  {_row_text(row)}")
         click.echo(f"report: {files['report.html']}")
     return result
+
+
+def _pitch_metres(pitch_mm: float) -> float:
+    from .units import to_metres
+
+    return float(to_metres(pitch_mm, "mm"))
+
+
+def _space_line(space) -> str:
+    bad = [v for v in space.panels if v.verdict != "pass"]
+    devices = [d for d in space.devices if not d.passes]
+    return (f"space: {len(space.panels) - len(bad)}/{len(space.panels)} fence panels pass, "
+            f"{len(space.crushing)} crushing point(s), {len(devices)}/{len(space.devices)} device(s) too close "
+            f"({space.risk} risk, restricted space over the {space.limits_source})")
 
 
 def _row_text(row) -> str:
@@ -160,16 +181,60 @@ def _json_summary(result, files) -> dict:
 @click.option("--jobs", type=click.IntRange(1, 256), default=1, show_default=True,
               help="Worker processes for the clearance computation (results are identical).")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary on stdout.")
+@click.option("--pitch", "pitch_mm", type=click.FloatRange(min=1.0, max=500.0), default=20.0, show_default=True,
+              metavar="MM", help="Voxel edge of the maximum, restricted and operating spaces, mm.")
 @_guarded
-def check(cell: Path, out: Path, jobs: int, as_json: bool) -> None:
-    """Check every target of CELL in every IK branch (and its programs, if any).
+def check(cell: Path, out: Path, jobs: int, as_json: bool, pitch_mm: float) -> None:
+    """Check every target of CELL in every IK branch (and its programs, if any), and its spaces.
 
-    Writes clearance.csv, clearance.json, report.html, report.pdf and .glb scenes to --out.
-    Exit code 0 when every target has a within-limits branch and every such branch (and motion) is
-    clear, 1 when there is any finding, 2 for bad input.
+    Writes clearance.csv, clearance.json, report.html, report.pdf and .glb scenes to --out, and the
+    space check's files (see `envelope space`). Exit code 0 when every target has a within-limits
+    branch and every such branch (and motion) is clear, 1 when there is any finding, 2 for bad input.
     """
-    result = _run_check_and_report(cell, out, jobs, as_json)
+    result = _run_check_and_report(cell, out, jobs, as_json, pitch_mm)
     sys.exit(result.exit_code)
+
+
+@main.command(epilog=CAUTION_HELP)
+@click.argument("cell", type=click.Path(path_type=Path))
+@click.option("--out", "out", type=click.Path(path_type=Path), default=Path("envelope-space"),
+              show_default=True, help="Folder for the spaces (STL, glTF), fences.csv, crushing.csv, space.json.")
+@click.option("--risk", type=click.Choice(["high", "low"]), default=None,
+              help="ISO 13857 risk level (reach-over table); the cell file's 'risk' (default high) if not given.")
+@click.option("--pitch", "pitch_mm", type=click.FloatRange(min=1.0, max=500.0), default=20.0, show_default=True,
+              metavar="MM", help="Voxel edge of the spaces, mm.")
+@click.option("--jobs", type=click.IntRange(1, 256), default=1, show_default=True,
+              help="Worker processes for the check that picks the usable branches.")
+@_guarded
+def space(cell: Path, out: Path, risk, pitch_mm: float, jobs: int) -> None:
+    """Maximum, restricted and operating space of CELL, judged against its fences, fixed objects and
+    protective devices, with suggested axis limits.
+
+    Exit code 0 when every fence panel passes, there is no crushing point and every protective device
+    is far enough; 1 otherwise; 2 for bad input.
+    """
+    from .cell import load_cell
+    from .check import run_check
+    from .spacecheck import run_space_check, write_space_outputs
+
+    cell_model = load_cell(cell)
+    result = run_check(cell_model, jobs=jobs)
+    sc = run_space_check(cell_model, result=result, pitch=_pitch_metres(pitch_mm), risk=risk)
+    files = write_space_outputs(sc, out)
+    click.echo(_space_line(sc))
+    for v in sc.panels:
+        if v.verdict != "pass":
+            click.echo(f"  panel {v.panel}: {v.verdict}: {'; '.join(v.reasons)}")
+    for c in sc.crushing:
+        click.echo(f"  crushing point: {c.panel} gap {c.gap_mm:.0f} mm < {c.check.min_gap_mm} mm"
+                   + (" (touches)" if c.touches else ""))
+    for d in sc.devices:
+        if not d.passes:
+            click.echo(f"  device {d.name}: {d.check.note}")
+    sug = sc.suggestion
+    click.echo(("suggested axis limits: " if sug.found else "no suggested axis limits: ") + sug.reason)
+    click.echo(f"files: {out} ({', '.join(sorted(files))})")
+    sys.exit(EXIT_CLEAR if sc.passes else EXIT_FINDING)
 
 
 @main.command(epilog=CAUTION_HELP)

@@ -190,9 +190,11 @@ class Arm:
     @property
     def spherical_wrist(self) -> bool:
         """True if axes 4, 5 and 6 meet in one point (then IK is closed form and complete)."""
-        from .pieper import is_spherical
+        if "spherical" not in self._cache:
+            from .pieper import is_spherical
 
-        return is_spherical(self.chain)
+            self._cache["spherical"] = is_spherical(self.chain)
+        return self._cache["spherical"]
 
     @property
     def _pieper(self):

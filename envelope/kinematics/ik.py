@@ -302,6 +302,13 @@ def _solutions(arm, flat: np.ndarray, n_starts: int) -> list:
     reach = (np.bincount(pb, weights=b_in, minlength=n) > 0).tolist()
     bounds, nbl = start.tolist(), nb.tolist()
     wcs = wc if closed else np.full((n, 3), np.nan)
+    # the nearest reachable wrist centre, for the poses with no position solution, in one call
+    gaps = {}
+    if closed:
+        far = np.flatnonzero(~np.array(reach) & (nb == 0) & ~arm_found)
+        if far.size:
+            g, beyond = wrist_centre_gaps(arm, wcs[far])
+            gaps = dict(zip(far.tolist(), zip(g.tolist(), beyond.tolist())))
     out = []
     for p in range(n):
         s, e = bounds[p], bounds[p + 1]
@@ -309,7 +316,7 @@ def _solutions(arm, flat: np.ndarray, n_starts: int) -> list:
         if not reach[p]:
             b = slice(s, s + nbl[p])
             found = bool(arm_found[p]) if closed else False
-            reason = _reason(arm, wcs[p], found, nbl[p], Q[b], E[b], C[b], method, starts)
+            reason = _reason(arm, gaps.get(p), found, nbl[p], Q[b], E[b], C[b], method, starts)
         out.append(IKSolutions(
             q=Q[s:e], labels=tuple(labels[s:e]), code=C[s:e], within_limits=W[s:e], excess=E[s:e],
             singular_wrist=S_w[s:e], singular_shoulder=S_s[s:e], singular_elbow=S_e[s:e],
@@ -319,7 +326,7 @@ def _solutions(arm, flat: np.ndarray, n_starts: int) -> list:
     return out
 
 
-def _reason(arm, wc, arm_found, k, placed, excess, code, method, starts) -> str:
+def _reason(arm, gap_beyond, arm_found, k, placed, excess, code, method, starts) -> str:
     if k > 0:
         worst = excess.max(-1)
         i = int(np.argmin(worst))
@@ -333,7 +340,7 @@ def _reason(arm, wc, arm_found, k, placed, excess, code, method, starts) -> str:
         return f"no solution found from {starts} starts (the numerical search is not guaranteed complete)"
     if arm_found:
         return "the wrist cannot reach the orientation: axis 6 cannot take the required direction"
-    gap, beyond = wrist_centre_gap(arm, wc)
+    gap, beyond = gap_beyond
     if beyond:
         return f"wrist centre beyond reach by {gap * 1e3:.3f} mm"
     return f"wrist centre inside the inner unreachable region, {gap * 1e3:.3f} mm from the reachable region"

@@ -123,7 +123,7 @@ def _draw_shape(ax, shape, world_from_parent, axes, extent, padding, *, face, ed
         ax.add_patch(Polygon(poly, closed=True, facecolor=face, edgecolor=edge, linewidth=lw, zorder=z, label=label))
 
 
-def view_figure(result, view: str = "plan", *, rows=None):
+def view_figure(result, view: str = "plan", *, rows=None, motions=()):
     """One orthographic view of the cell as a matplotlib Figure (axes in mm, equal aspect).
 
     Parameters
@@ -132,6 +132,10 @@ def view_figure(result, view: str = "plan", *, rows=None):
     view : {"plan", "elevation-xz", "elevation-yz"}
     rows : list of int, optional
         Rows whose arm configuration is drawn; ``drawn_rows(result)`` by default.
+    motions : list of int, optional
+        Indices into ``result.motions`` whose worst configuration (``q_at_min``) is drawn too, hatched
+        with dashed outlines, a diamond at the TCP and labelled ``M<k>`` (k = position in this list + 1);
+        ``motions.drawn_motions(result)`` gives the usual choice.
     """
     cell = result.cell
     axes = VIEWS[view]
@@ -139,8 +143,10 @@ def view_figure(result, view: str = "plan", *, rows=None):
     if rows is None:
         rows = drawn_rows(result)
     tcp_all = np.array([np.asarray(t.world_from_tcp)[:3, 3] for t in cell.targets]).reshape(-1, 3)
-    extent = cell_extent(cell, qs=[result.rows[i].q for i in rows] if rows else None, points=tcp_all)
-    offended = offended_zones(result, rows)
+    qs = [result.rows[i].q for i in rows] + [result.motions[i].q_at_min for i in motions]
+    extent = cell_extent(cell, qs=qs if qs else None, points=tcp_all)
+    offended = offended_zones(result, rows) if rows or not motions else set()
+    offended |= motion_offended_zones(result, motions)
     fig, ax = plt.subplots(figsize=(7.0, 6.0), dpi=DPI)
 
     for zone in cell.zones:
@@ -160,6 +166,12 @@ def view_figure(result, view: str = "plan", *, rows=None):
             c = np.mean(centres, axis=0)
             ax.annotate(zone.name, c, fontsize=7, ha="center", va="center", color=(0.2, 0.2, 0.2), zorder=5)
 
+    from .spacesection import restricted_outlines
+
+    outlines = restricted_outlines(result, view)
+    for loop in outlines:
+        ax.plot(loop[:, 0], loop[:, 1], color=(0.1, 0.3, 0.85), linewidth=1.1, linestyle="--", zorder=4)
+
     for i in rows:
         row = result.rows[i]
         world_from_frame = world_from_frames(cell, row.q)
@@ -176,6 +188,9 @@ def view_figure(result, view: str = "plan", *, rows=None):
             f"{row.target} ({row.branch})", tcp[list(axes)], fontsize=7, xytext=(4, 4),
             textcoords="offset points", zorder=6,
         )
+
+    for k, i in enumerate(motions, start=1):
+        _draw_motion_arm(ax, result, i, k, axes, extent)
 
     # every target's TCP, coloured by the worst status among its rows
     worst: dict = {}
@@ -195,6 +210,9 @@ def view_figure(result, view: str = "plan", *, rows=None):
     ax.plot([base[0]], [base[1]], marker="+", color="black", markersize=10, zorder=8)
 
     lo, hi = to_mm(extent[0])[list(axes)], to_mm(extent[1])[list(axes)]
+    if outlines:
+        pts = np.vstack(outlines)
+        lo, hi = np.minimum(lo, pts.min(axis=0)), np.maximum(hi, pts.max(axis=0))
     ax.set_xlim(lo[0], hi[0])
     ax.set_ylim(lo[1], hi[1])
     ax.set_aspect("equal", adjustable="box")
@@ -203,17 +221,60 @@ def view_figure(result, view: str = "plan", *, rows=None):
     ax.set_title(VIEW_TITLES[view], fontsize=10)
     ax.grid(True, linewidth=0.3, alpha=0.5)
 
-    statuses = sorted({result.rows[i].status for i in rows} | set(worst.values()), key=_sev)
+    statuses = sorted({result.rows[i].status for i in rows} | set(worst.values()) | {result.motions[i].status for i in motions}, key=_sev)
     handles = [Patch(facecolor=(0.55, 0.55, 0.55, 0.3), edgecolor=(0.4, 0.4, 0.4), label="zone")]
     if offended:
         handles.append(Patch(facecolor=(0.85, 0.15, 0.15, 0.3), edgecolor=(0.7, 0.1, 0.1), label="zone with a finding"))
     if any(z.kind == "fence" for z in cell.zones):
         handles.append(Patch(facecolor=(0.55, 0.55, 0.55, 0.3), edgecolor=(0.15, 0.15, 0.15), linewidth=1.6, label="fence"))
     handles += [Patch(facecolor=status_colour(s)[:3] + (0.45,), edgecolor=status_colour(s), label=f"arm / TCP: {s}") for s in statuses]
+    if motions:
+        handles.append(Patch(facecolor="none", edgecolor=(0.2, 0.2, 0.2), hatch="////", linestyle="--", label="M<k>: worst configuration of a move"))
     handles.append(Line2D([], [], marker="+", color="black", linestyle="none", markersize=9, label="arm base"))
+    if outlines:
+        handles.append(Line2D([], [], color=(0.1, 0.3, 0.85), linewidth=1.1, linestyle="--", label="restricted space"))
     ax.legend(handles=handles, fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
     fig.tight_layout()
     return fig
+
+
+def motion_offended_zones(result, motions) -> set:
+    """Names of the zones that decide the motions ``motions`` (indices) whose status is a finding."""
+    zone_names = {z.name for z in result.cell.zones}
+    out = set()
+    for i in motions:
+        m = result.motions[i]
+        if m.status in FINDING_STATUSES:
+            zone = zone_of(m.closest_other, zone_names)
+            if zone:
+                out.add(zone)
+    return out
+
+
+def _draw_motion_arm(ax, result, i, k, axes, extent):
+    """The arm at motion ``i``'s worst configuration: hatched, dashed outlines, diamond TCP, ``M<k>`` label."""
+    from .motions import move_label
+
+    cell = result.cell
+    m = result.motions[i]
+    world_from_frame = world_from_frames(cell, m.q_at_min)
+    colour = status_colour(m.status)
+    for body in cell.bodies:
+        for shape in body.shapes:
+            mesh = shape_mesh(shape, extent=extent, padding=body.padding)
+            mesh.apply_transform(world_from_frame[body.frame])
+            poly = _silhouette(to_mm(mesh.vertices)[:, axes])
+            if poly is not None:
+                ax.add_patch(Polygon(
+                    poly, closed=True, facecolor=colour[:3] + (0.18,), edgecolor=colour[:3] + (1.0,), hatch="////",
+                    linewidth=0.9, linestyle="--", zorder=3.5,
+                ))
+    tcp = to_mm((world_from_frame[6] @ cell.tool.flange_from_tcp)[:3, 3])[list(axes)]
+    ax.plot([tcp[0]], [tcp[1]], marker="D", markersize=6, color=colour, markeredgecolor="black", markeredgewidth=0.6, zorder=7.5)
+    ax.annotate(
+        f"M{k} {move_label(m)} [{m.branch}] s={m.where:.2f}", tcp, fontsize=6.5, xytext=(5, -9),
+        textcoords="offset points", zorder=8, bbox={"boxstyle": "round,pad=0.15", "fc": (1, 1, 1, 0.75), "ec": "none"},
+    )
 
 
 def clearance_chart(result):

@@ -7,7 +7,8 @@ import dataclasses
 from html import escape
 
 from ..units import to_degrees, to_mm
-from .figures import FIGURE_CAPTIONS
+from .figures import FIGURE_CAPTIONS  # noqa: F401 - kept for importers
+from .spacesection import figure_caption, html_section
 from .summary import (
     all_warnings,
     cautions,
@@ -179,8 +180,9 @@ def html_text(result, figures: dict, now_text: str) -> str:
         data = base64.b64encode(png).decode("ascii")
         parts.append(
             f'<figure><img alt="{_e(name)}" src="data:image/png;base64,{data}">'
-            f"<figcaption>{_e(FIGURE_CAPTIONS.get(name, name))}</figcaption></figure>"
+            f"<figcaption>{_e(figure_caption(result, name))}</figcaption></figure>"
         )
+    parts.append(html_section(result, _table, _status, _e))
 
     header, rows, shown, total = clearance_table_rows(result)
     parts.append("<h2>Clearance table (worst first)</h2>")

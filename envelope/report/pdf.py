@@ -16,7 +16,8 @@ from reportlab.lib.styles import getSampleStyleSheet
 from reportlab.lib.units import mm
 from reportlab.platypus import Image, PageBreak, Paragraph, SimpleDocTemplate, Spacer, Table, TableStyle
 
-from .figures import FIGURE_CAPTIONS
+from .figures import FIGURE_CAPTIONS  # noqa: F401 - kept for importers
+from .spacesection import figure_caption, pdf_story
 from .html import HTML_ROW_LIMIT, STATUS_CSS, clearance_table_rows, inputs_rows
 from .summary import all_warnings, cautions, cell_summary, fmt, status_counts, target_count, tool_version, verdict_text
 
@@ -125,7 +126,12 @@ def pdf_bytes(result, figures: dict, now_text: str) -> bytes:
     for name, png in figures.items():
         story.append(PageBreak())
         story.append(_image(png, width, height - 20 * mm))
-        story.append(_p(FIGURE_CAPTIONS.get(name, name), small))
+        story.append(_p(figure_caption(result, name), small))
+
+    space_story = pdf_story(result, lambda data, font_size=7.5: _grid(data, font_size=font_size), _p, (body, small, h2), width)
+    if space_story:
+        story.append(PageBreak())
+        story += space_story
 
     story.append(PageBreak())
     story.append(_p("Clearance table (worst first)", h2))

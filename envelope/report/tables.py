@@ -16,6 +16,8 @@ import numpy as np
 
 from ..units import to_degrees, to_mm
 from .files import AtomicWriter, write_text_atomic
+from .motions import CSV_MOTION_COLUMNS, motion_ranks, motion_record, motion_rows
+from .motions import csv_cells as motion_csv_cells
 from .summary import (
     all_warnings,
     cell_summary,
@@ -60,8 +62,10 @@ CSV_COLUMNS = (
     "other_y_mm",
     "other_z_mm",
     "note",
+    *CSV_MOTION_COLUMNS,
 )
-"""The columns of clearance.csv, in order (stable; new columns are only ever appended)."""
+"""The columns of clearance.csv, in order (stable; new columns are only ever appended). Target rows
+first, then motion rows (``kind`` tells them apart; see ``motions.csv_cells``)."""
 
 JSON_FORMAT = "envelope-clearance"
 JSON_FORMAT_VERSION = 1
@@ -79,7 +83,8 @@ def ranks(result) -> list:
 
 
 def csv_text(result) -> str:
-    """clearance.csv as text: one row per target x branch, in ``result.rows`` order."""
+    """clearance.csv as text: one row per target x branch, in ``result.rows`` order, then one row per
+    motion (``envelope.sweep.MotionRow``), in ``result.motions`` order."""
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(CSV_COLUMNS)
@@ -112,8 +117,13 @@ def csv_text(result) -> str:
                 *(fmt(v) for v in wb),
                 *(fmt(v) for v in wo),
                 row.note,
+                "target",
+                *([""] * (len(CSV_MOTION_COLUMNS) - 1)),
             ]
         )
+    motion_rank = motion_ranks(result)
+    for i, m in motion_rows(result):  # after the target rows, in sweep order; ``rank`` among motions
+        w.writerow(motion_csv_cells(i, m, motion_rank[i], CSV_COLUMNS))
     return buf.getvalue()
 
 
@@ -315,6 +325,22 @@ def _jsonable(value):
 
 
 _ROWS_SENTINEL = "@@ROWS@@"
+_MOTIONS_SENTINEL = "@@MOTIONS@@"
+
+
+def motions_json(result) -> str:
+    """The ``motions`` array of clearance.json as text, one compact motion per line.
+
+    A ``MotionRow`` becomes ``motions.motion_record``; any other motion object its fields as plain
+    values (``_jsonable``).
+    """
+    rank = motion_ranks(result)
+    recs = [
+        motion_record(i, m, rank[i]) if i in rank else _jsonable(m) for i, m in enumerate(result.motions)
+    ]
+    if not recs:
+        return "[]"
+    return "[\n" + ",\n".join(json.dumps(r, sort_keys=True, separators=(",", ":"), allow_nan=False) for r in recs) + "\n]"
 
 
 def write_json(result, path, *, witnesses: str = "findings"):
@@ -343,11 +369,16 @@ def write_json(result, path, *, witnesses: str = "findings"):
         "warnings": all_warnings(result),
         "pairs": defs,
         "witnesses": witnesses,
-        "motions": [_jsonable(m) for m in result.motions],
+        "motions": _MOTIONS_SENTINEL,
         "rows": _ROWS_SENTINEL,
     }
     head["pair_status_codes"] = status_codes
+    if getattr(result, "space", None) is not None:  # only then: a report without it keeps its bytes
+        from .spacesection import space_json
+
+        head["space"] = space_json(result)
     text = json.dumps(head, sort_keys=True, indent=1, allow_nan=False)
+    text = text.replace(json.dumps(_MOTIONS_SENTINEL), motions_json(result), 1)
     before, after = text.split(json.dumps(_ROWS_SENTINEL), 1)
     n = len(result.rows)
     with AtomicWriter(path) as out:  # rows are streamed: a big check is never held as one string

@@ -4,7 +4,9 @@ Run:  /work/venv/bin/python tests/benchmarks/bench_ik.py [--n 100000]
 
 For random reachable poses (made by FK of random joint values) of an ortho-parallel arm and of an arm
 with general twists: batch IK time per pose (all branches), single-pose call latency, and the ratio
-of batch IK time to batch FK time of the n * 8 configurations IK returned, in the same run.
+of batch IK time to batch FK time of the n * 8 configurations IK returned, in the same run; then
+``Arm.ik_each`` (full per-pose ``IKSolutions``) on 10 000 poses, a tenth of them beyond reach, with
+joint 6 limited to +-360 deg (turn variants).
 """
 
 from __future__ import annotations
@@ -68,5 +70,29 @@ def main():
               f"IK/FK {c_ik / c_fk:5.2f}")
 
 
+def bench_each(n_each=10_000):
+    print(f"ik_each: {n_each} poses, 10 % beyond reach, joint 6 in +-360 deg (turn variants)")
+    rng = np.random.default_rng(2)
+    for arm in arms():
+        lim = np.array(arm.limits)
+        lim[5] = [-2 * PI, 2 * PI]
+        arm = arm.with_limits(lim)
+        T = arm.fk(rng.uniform(-PI, PI, (n_each, 6)))
+        T[: n_each // 10, :3, 3] *= 4.0
+        arm.ik_each(T[:10])  # build the cached grid of the unreachable-reason search
+        w0, c0 = time.perf_counter(), time.process_time()
+        sols = arm.ik_each(T)
+        wall, cpu = time.perf_counter() - w0, time.process_time() - c0
+        print(f"{arm.name:15s} ik_each wall {wall:6.2f} s ({wall / n_each * 1e6:6.1f} us/pose)   CPU {cpu:6.2f} s "
+              f"({cpu / n_each * 1e6:6.1f} us/pose)   rows {sum(len(s) for s in sols)}   "
+              f"unreachable {sum(not s.reachable for s in sols)}")
+        reach = T[n_each // 10 : n_each // 10 + 200]
+        c0 = time.process_time()
+        for P in reach:
+            arm.ik(P)
+        print(f"{'':15s} single-pose arm.ik, reachable: CPU {(time.process_time() - c0) / len(reach) * 1e6:7.1f} us")
+
+
 if __name__ == "__main__":
     main()
+    bench_each()
