@@ -141,7 +141,8 @@ class CheckResult:
         A within-limits branch that is not clear is a finding; so is a target with no within-limits
         branch at all (its rows are all ``outside limits`` or it is ``unreachable``): the program
         could not run it. Branches outside limits of a target that has a within-limits branch are
-        shown but are not findings.
+        shown but are not findings. A motion that is not clear is a finding, and so is each failing
+        fence panel, crushing point or protective device of the space check (``space``).
         """
         out = []
         by_target: dict = {}
@@ -153,6 +154,8 @@ class CheckResult:
                 out.append(min((r.status for r in rows), key=STATUS_SEVERITY.__getitem__))
             out.extend(r.status for r in runnable if r.status != CLEAR)
         out.extend(m.status for m in self.motions if m.status != CLEAR)
+        if self.space is not None:
+            out.extend(self.space.findings())
         return out
 
 
@@ -249,7 +252,7 @@ def solve_targets(cell: Cell) -> list:
         return []
     world_from_tcp = np.stack([t.world_from_tcp for t in cell.targets])
     base_from_flange = cell.base_from_flange(world_from_tcp)
-    return [cell.arm.ik(T) for T in base_from_flange]
+    return cell.arm.ik_each(base_from_flange)
 
 
 def run_motions(cell: Cell, program=None, *, prune: bool = True) -> tuple:

@@ -40,10 +40,14 @@ several directions and reports the largest gap (and never less than the bounding
 - Zone meshes (not convex): the lower bound is the minimum over the mesh's triangles (each convex)
   of each triangle's best gap along its normal (both signs), the python-fcl witness direction (both
   signs), the direction from the body centre, and a direction refined by alternating projections
-  between the body and the triangle -- a valid lower bound on the distance to the surface. A
-  watertight mesh is a solid: an explicit inside test (a point of the body inside the mesh, trimesh's
-  ray test; a mesh vertex inside the body) reports a body wholly inside the zone, or the zone inside a
-  body, which touches no triangle. When a body touches or enters a zone mesh the depth is not defined:
+  between the body and the triangle -- a valid lower bound on the distance to the surface. (A
+  triangle whose cheaper bound -- sphere bound, outer-box gap along its normal -- is not below the
+  minimum found cannot attain it and is skipped: the value is the full minimum.) A watertight mesh
+  is a solid: an explicit inside test (a point of the body inside the mesh; a mesh vertex inside the
+  body) reports a body wholly inside the zone, or the zone inside a body, which touches no triangle.
+  The point test is only made when the body is certified clear of every triangle, so the point is
+  off the surface: the winding number (``geometry.winding_number``) decides it, trimesh's ray test
+  for a mesh that is not consistently wound. When a body touches or enters a zone mesh the depth is not defined:
   ``depth_known`` is False and the distance is the sentinel ``DEPTH_UNKNOWN`` (-0.0), status
   intrusion. A non-watertight zone mesh is a surface only (the cell loader warns).
 - Every primitive zone also gets the analytic inside test (belt and braces: for convex solids the gap
@@ -70,6 +74,18 @@ it cannot become the worst pair). The reported exact bound is the larger of both
 never changes a status, the worst pair or its value. Allowed pairs are always pruned when ``prune``
 is on (their status does not depend on the distance). A pair's minimum over many configurations is
 therefore exact whenever it is below the required clearance.
+
+Batching
+--------
+Configurations are evaluated in blocks of up to 256. Within a block the exact queries that the
+one-by-one visit above makes are found in rounds -- first every pair with a cheap margin <= 0 (the
+visit never stops before those), then, per configuration, the next pair in cheap-margin order while
+its margin is <= the worst so far -- and each round's queries are batched per pair across
+configurations: python-fcl is called once per query (for its witness direction), every support gap,
+projection, mesh bound and inside test is one numpy expression over the batch. Only elementwise
+arithmetic is used there, so a configuration's values do not depend on the batch it is in. The
+visited pairs and the values are those of the one-by-one path (kept as the reference, ``_exact_pair``;
+tests/test_clearance_fast.py compares the two).
 
 Processes
 ---------
@@ -101,7 +117,7 @@ DEPTH_UNKNOWN = -0.0
 """The distance reported (with ``depth_known`` False) when a body touches or enters a non-convex zone."""
 
 _KIND_CONVEX, _KIND_MESH, _KIND_HALF = 0, 1, 2
-_BLOCK = 64  # configurations per vectorised block (bounds memory)
+_BLOCK = 256  # configurations per block (exact queries are batched per pair across a block)
 
 
 @dataclass(frozen=True)
@@ -220,6 +236,9 @@ class _Slot:
     frame_from_obj: np.ndarray = None
     tris: np.ndarray = None  # zone meshes: (T, 3, 3) triangles
     tri_normals: np.ndarray = None
+    tri_centers: np.ndarray = None
+    tri_radius: np.ndarray = None
+    wound: bool = False  # zone meshes: closed and consistently wound (winding-number inside test)
 
 
 def _outer(shape):
@@ -336,6 +355,9 @@ def _make_slot(shape, *, body, frame, pad, item):
         ln = np.linalg.norm(nrm, axis=1)
         slot.tris = tris
         slot.tri_normals = np.where(ln[:, None] > 0, nrm / np.where(ln > 0, ln, 1.0)[:, None], [0.0, 0.0, 1.0])
+        slot.tri_centers = tris.mean(axis=1)
+        slot.wound = bool(shape.watertight) and g.is_consistently_wound(shape)
+        slot.tri_radius = np.sqrt(((tris - slot.tri_centers[:, None]) ** 2).sum(axis=2)).max(axis=1)
     return slot
 
 
@@ -390,6 +412,66 @@ def _outer_support(c, w, r, rho, z, u):
     return h + rho[..., None] * np.sqrt(np.maximum(1.0 - uz * uz, 0.0))
 
 
+def _rows_times(u, M):
+    """``u @ M`` over the last axes, elementwise: ``u (..., 3)``, ``M (..., 3, 3)`` (broadcast)."""
+    return u[..., 0, None] * M[..., 0, :] + u[..., 1, None] * M[..., 1, :] + u[..., 2, None] * M[..., 2, :]
+
+
+def _times_rows(M, x):
+    """``M @ x`` over the last axes, elementwise: ``M (..., 3, 3)``, ``x (..., 3)`` (broadcast)."""
+    return x[..., None, 0] * M[..., :, 0] + x[..., None, 1] * M[..., :, 1] + x[..., None, 2] * M[..., :, 2]
+
+
+def _support_local(shape, u):
+    """``envelope.geometry.support`` along ``u (..., 3)`` (any leading shape), elementwise arithmetic."""
+    if isinstance(shape, g.Sphere):
+        return _dot(u, shape.center) + shape.radius * np.sqrt(_dot(u, u))
+    if isinstance(shape, g.Capsule):
+        return np.maximum(_dot(u, shape.p0), _dot(u, shape.p1)) + shape.radius * np.sqrt(_dot(u, u))
+    if isinstance(shape, g.Box):
+        Rb, tb, e = shape.pose[:3, :3], shape.pose[:3, 3], 0.5 * shape.extents
+        return (_dot(u, tb) + np.abs(_dot(u, Rb[:, 0])) * e[0] + np.abs(_dot(u, Rb[:, 1])) * e[1]
+                + np.abs(_dot(u, Rb[:, 2])) * e[2])
+    if isinstance(shape, g.Cylinder):
+        z, c = shape.pose[:3, 2], shape.pose[:3, 3]
+        uz = _dot(u, z)
+        radial = np.sqrt(np.maximum(_dot(u, u) - uz * uz, 0.0))
+        return _dot(u, c) + 0.5 * shape.length * np.abs(uz) + shape.radius * radial
+    if isinstance(shape, (g.Convex, g.TriMesh)):
+        V = shape.vertices
+        return (u[..., None, 0] * V[:, 0] + u[..., None, 1] * V[:, 1] + u[..., None, 2] * V[:, 2]).max(axis=-1)
+    raise TypeError(f"no bounded support for {type(shape).__name__}")
+
+
+def _closest_local(shape, p):
+    """``envelope.geometry.closest_point`` of a primitive for points ``p (..., 3)``, elementwise arithmetic."""
+    if isinstance(shape, (g.Sphere, g.Capsule)):
+        if isinstance(shape, g.Sphere):
+            c = np.broadcast_to(shape.center, p.shape)
+        else:
+            d = shape.p1 - shape.p0
+            dd = float(d @ d)
+            s = np.zeros(p.shape[:-1]) if dd == 0 else np.clip(_dot(p - shape.p0, d) / dd, 0.0, 1.0)
+            c = shape.p0 + s[..., None] * d
+        v = p - c
+        n = np.sqrt(_dot(v, v))
+        scale = np.where(n > shape.radius, shape.radius / np.where(n > 0, n, 1.0), 1.0)
+        return c + v * scale[..., None]
+    Rb, tb = shape.pose[:3, :3], shape.pose[:3, 3]
+    local = _rows_times(p - tb, Rb)
+    if isinstance(shape, g.Box):
+        h = 0.5 * shape.extents
+        local = np.clip(local, -h, h)
+    elif isinstance(shape, g.Cylinder):
+        z = np.clip(local[..., 2], -0.5 * shape.length, 0.5 * shape.length)
+        rad = np.hypot(local[..., 0], local[..., 1])
+        scale = np.where(rad > shape.radius, shape.radius / np.where(rad > 0, rad, 1.0), 1.0)
+        local = np.stack([local[..., 0] * scale, local[..., 1] * scale, z], axis=-1)
+    else:
+        raise TypeError(f"no closest point for {type(shape).__name__}")
+    return _times_rows(Rb, local) + tb
+
+
 # ----------------------------------------------------------------------------------------- engine
 class ClearanceEngine:
     """Pairs and python-fcl geometry of one cell, built once; ``evaluate(q)`` is then a pure function.
@@ -413,6 +495,7 @@ class ClearanceEngine:
     def __init__(self, cell, *, prune: bool = True):
         self.cell = cell
         self.prune = bool(prune)
+        self._scalar = False  # True: the one-by-one reference path (tests compare the two)
         self.bodies = tuple(cell.bodies)
         names = [b.name for b in self.bodies]
         if len(set(names)) != len(names):
@@ -594,18 +677,10 @@ class ClearanceEngine:
             parts = list(ex.map(evaluate_in_worker, chunks))
         return ClearanceResult.concatenate(parts)
 
-    def _evaluate_block(self, q2) -> ClearanceResult:
-        n, P = len(q2), len(self.pairs)
-        W = self._world_from_frames(q2)  # (n, 7, 4, 4)
+    def _shape_pair_bounds(self, R, t):
+        """Per shape pair ``(n, M)``: cheap bound, analytic exact bound, upper estimate, witnesses ``(n, M, 3)``."""
+        n = len(R)
         slots = self._slots
-        nb = self._n_body_slots
-        # slot poses (n, S, 3, 3) / (n, S, 3): zones are fixed (identity)
-        S = len(slots)
-        R = np.broadcast_to(np.eye(3), (n, S, 3, 3)).copy()
-        t = np.zeros((n, S, 3))
-        Wb = W[:, self._S_frame[:nb]]
-        R[:, :nb] = Wb[..., :3, :3]
-        t[:, :nb] = Wb[..., :3, 3]
         Rt = np.swapaxes(R, -1, -2)
         ctr = (R @ self._S_center[..., None])[..., 0] + t
         oc = (R @ self._S_oc[..., None])[..., 0] + t
@@ -665,6 +740,10 @@ class ClearanceEngine:
             sphere = np.sqrt(_dot(d, d)) - self._S_radius[a] - self._S_radius[b]
             cheap_sp[:, m] = sphere
             pm = self._sp_pair[m]
+        posed = (ctr, oc, ow, zax, axes)
+        obb_done = np.zeros((n, M), dtype=bool)  # where the outer-support gap is in cheap_sp
+        obb_done[:, self._sp_analytic] = True
+        if m.size:
             if self.prune:
                 # a pair whose sphere margin is above max(0, the best analytic margin) is pruned
                 # whatever its tighter bound: skip computing that (it changes no status nor worst)
@@ -687,18 +766,42 @@ class ClearanceEngine:
                 I, J = np.nonzero(need)
             else:
                 I, J = np.nonzero(np.ones((n, m.size), dtype=bool))
-            if I.size:
-                aa, bb = a[J], b[J]
-                u0 = _unit(d[I, J], np.array([0.0, 0.0, 1.0]))  # (k, 3)
-                ax = axes[I, bb]  # (k, 3, 3)
-                sgn = np.sign(_dot(ax, u0[:, None, :]))
-                sgn = np.where(sgn == 0, 1.0, sgn)
-                U = np.concatenate([u0[:, None], ax * sgn[..., None]], axis=1)  # (k, 4, 3)
-                h_a = _outer_support(oc[I, aa], ow[I, aa], self._S_r[aa], self._S_rho[aa], zax[I, aa], U)
-                h_b = _outer_support(oc[I, bb], ow[I, bb], self._S_r[bb], self._S_rho[bb], zax[I, bb], -U)
-                gap = (-h_b - h_a).max(axis=-1)
-                cheap_sp[I, m[J]] = np.maximum(sphere[I, J], gap)
+            self._outer_gap(posed, cheap_sp, obb_done, I, m[J])
+        return cheap_sp, exact_sp, upper_sp, wb_sp, wo_sp, posed, obb_done
 
+    def _outer_gap(self, posed, cheap_sp, obb_done, I, mm):
+        """Raise the cheap bound of shape pairs ``mm`` in configurations ``I`` (both ``(k,)``) to the
+        outer-support gap along the centre direction and the other shape's axes (in place)."""
+        if not I.size:
+            return
+        ctr, oc, ow, zax, axes = posed
+        aa, bb = self._sp_a[mm], self._sp_b[mm]
+        u0 = _unit(ctr[I, bb] - ctr[I, aa], np.array([0.0, 0.0, 1.0]))  # (k, 3)
+        ax = axes[I, bb]  # (k, 3, 3)
+        sgn = np.sign(_dot(ax, u0[:, None, :]))
+        sgn = np.where(sgn == 0, 1.0, sgn)
+        U = np.concatenate([u0[:, None], ax * sgn[..., None]], axis=1)  # (k, 4, 3)
+        h_a = _outer_support(oc[I, aa], ow[I, aa], self._S_r[aa], self._S_rho[aa], zax[I, aa], U)
+        h_b = _outer_support(oc[I, bb], ow[I, bb], self._S_r[bb], self._S_rho[bb], zax[I, bb], -U)
+        gap = (-h_b - h_a).max(axis=-1)
+        cheap_sp[I, mm] = np.maximum(cheap_sp[I, mm], gap)
+        obb_done[I, mm] = True
+
+    def _evaluate_block(self, q2) -> ClearanceResult:
+        n, P = len(q2), len(self.pairs)
+        W = self._world_from_frames(q2)  # (n, 7, 4, 4)
+        slots = self._slots
+        nb = self._n_body_slots
+        # slot poses (n, S, 3, 3) / (n, S, 3): zones are fixed (identity)
+        S = len(slots)
+        R = np.broadcast_to(np.eye(3), (n, S, 3, 3)).copy()
+        t = np.zeros((n, S, 3))
+        Wb = W[:, self._S_frame[:nb]]
+        R[:, :nb] = Wb[..., :3, :3]
+        t[:, :nb] = Wb[..., :3, 3]
+        cheap_sp, exact_sp, upper_sp, wb_sp, wo_sp, posed, obb_done = self._shape_pair_bounds(R, t)
+
+        M = len(self._sp_a)
         cheap = np.minimum.reduceat(cheap_sp, self._sp_start, axis=1) if M else np.zeros((n, 0))
         dist = np.full((n, P), np.inf)
         upper = np.full((n, P), np.inf)
@@ -724,10 +827,80 @@ class ClearanceEngine:
             wo[:, p] = wo_sp[rows, k]
         dist[:, full] -= self._pair_pad[full]
         upper[:, full] -= self._pair_pad[full]
+        scratch = (exact_sp, upper_sp, wb_sp, wo_sp)
         cheap_d = cheap - self._pair_pad
         cheap_margin = cheap_d - self.required
-        scratch = (exact_sp, upper_sp, wb_sp, wo_sp)
+        if self._scalar:
+            self._exact_loop_scalar(n, P, R, t, cheap_sp, scratch, dist, upper, known, wb, wo, pruned,
+                                    cheap_d, cheap_margin)
+            return self._finish(dist, upper, known, wb, wo, pruned)
+        # world_from_obj of the body slots (python-fcl transforms), contiguous for fcl.Transform
+        Rw = np.empty((n, nb, 3, 3))
+        tw = np.empty((n, nb, 3))
+        for s in range(nb):
+            F = slots[s].frame_from_obj
+            Rw[:, s] = R[:, s] @ F[:3, :3]
+            tw[:, s] = (R[:, s] @ F[:3, 3]) + t[:, s]
+        Wobj = (Rw, tw)
 
+        def run(I, J):
+            """Exact bounds of the (configuration, pair) cells ``(I[k], J[k])``, batched per pair."""
+            if not I.size:
+                return
+            order = np.argsort(J, kind="stable")
+            I, J = I[order], J[order]
+            cut = np.flatnonzero(np.diff(J)) + 1
+            for Ik, Jk in zip(np.split(I, cut), np.split(J, cut)):
+                for mm in self._pair_sps[int(Jk[0])]:  # every exact bound starts from the full cheap bound
+                    miss = Ik[~obb_done[Ik, mm]]
+                    self._outer_gap(posed, cheap_sp, obb_done, miss, np.full(len(miss), mm))
+                self._exact_batch(int(Jk[0]), Ik, R, t, Wobj, cheap_sp, scratch, dist, upper, known, wb, wo)
+
+        exact_cols = ~full
+        if not self.prune:
+            I, J = np.nonzero(np.broadcast_to(exact_cols, (n, P)))
+            run(I, J)
+            return self._finish(dist, upper, known, wb, wo, pruned)
+        # The pairs a one-by-one visit in order of cheap margin would query exactly (see module docs):
+        # 1. every non-allowed pair whose cheap margin is <= 0 (the visit never stops before them);
+        cand = exact_cols & ~self.allowed
+        row = np.where(self.allowed, np.inf, cheap_margin)
+        done = np.zeros((n, P), dtype=bool)
+        first = cand & (row <= 0.0)
+        I, J = np.nonzero(first)
+        run(I, J)
+        done |= first
+        exact_margin = np.where(known, dist - self.required, -np.inf)
+        best = np.where(full & ~self.allowed, cheap_margin, np.where(done, exact_margin, np.inf)).min(axis=1) if P \
+            else np.full(n, np.inf)
+        # 2. then, in ascending cheap margin, each pair while its cheap margin is <= the worst margin so
+        #    far (one pair per configuration per round, batched per pair across configurations)
+        rest = np.where(cand & ~first, row, np.inf)
+        order = np.argsort(rest, axis=1, kind="stable")
+        ptr = 0
+        active = np.flatnonzero(best > 0.0)
+        while active.size and ptr < P:
+            p_next = order[active, ptr]
+            c_next = rest[active, p_next]
+            go = (c_next <= best[active]) & np.isfinite(c_next)
+            active, p_next = active[go], p_next[go]
+            if not active.size:
+                break
+            run(active, p_next)
+            done[active, p_next] = True
+            m = np.where(known[active, p_next], dist[active, p_next] - self.required[p_next], -np.inf)
+            best[active] = np.minimum(best[active], m)
+            active = active[best[active] > 0.0]
+            ptr += 1
+        skip = ~done & exact_cols
+        pruned[:] = skip
+        dist[skip] = cheap_d[skip]
+        return self._finish(dist, upper, known, wb, wo, pruned)
+
+    def _exact_loop_scalar(self, n, P, R, t, cheap_sp, scratch, dist, upper, known, wb, wo, pruned, cheap_d,
+                           cheap_margin):
+        """Reference path (``_scalar``): one configuration and one pair at a time (``_exact_pair``)."""
+        full = self._pair_analytic
         cache = {}
         allowed_l = self.allowed.tolist()
         half_l = full.tolist()
@@ -757,7 +930,6 @@ class ClearanceEngine:
                     if not half_l[p]:
                         self._exact_pair(p, i, R, t, cheap_sp, scratch, dist, upper, known, wb, wo, cache)
             cache.clear()
-        return self._finish(dist, upper, known, wb, wo, pruned)
 
     def _finish(self, dist, upper, known, wb, wo, pruned) -> ClearanceResult:
         req = self.required
@@ -782,6 +954,261 @@ class ClearanceEngine:
         upper = np.maximum(upper, dist)
         return ClearanceResult(dist, upper, known, wb, wo, status, pruned, margin, worst.astype(np.int64),
                                worst_margin, overall)
+
+    # ------------------------------------------------------------------------------- batched exact queries
+    # The same bound as ``_exact_pair`` (the one-configuration reference kept below), for one pair over
+    # many configurations at once: python-fcl is still called once per configuration (for its witness
+    # direction), every support gap, projection and mesh bound is one numpy expression over the batch.
+    # Only elementwise arithmetic is used, so a configuration's values do not depend on the batch.
+
+    def _fcl_batch(self, sa, sb, I, Wobj):
+        """python-fcl signed distance and witnesses of slots ``sa``, ``sb`` in configurations ``I``."""
+        A, B = self._slots[sa], self._slots[sb]
+        oa, ob = A.obj, B.obj
+        k = len(I)
+        d = np.empty(k)
+        pts = np.empty((k, 2, 3))
+        move_a, move_b = A.body >= 0, B.body >= 0
+        Ra_, ta_ = (Wobj[0][:, sa], Wobj[1][:, sa]) if move_a else (None, None)
+        Rb_, tb_ = (Wobj[0][:, sb], Wobj[1][:, sb]) if move_b else (None, None)
+        Transform, DistanceRequest, DistanceResult, distance = fcl.Transform, fcl.DistanceRequest, fcl.DistanceResult, fcl.distance
+        for j, i in enumerate(I.tolist()):
+            if move_a:
+                oa.setTransform(Transform(Ra_[i], ta_[i]))
+            if move_b:
+                ob.setTransform(Transform(Rb_[i], tb_[i]))
+            req = DistanceRequest(enable_nearest_points=True, enable_signed_distance=True)
+            res = DistanceResult()
+            d[j] = distance(oa, ob, req, res)
+            pts[j] = res.nearest_points
+        return d, pts[:, 0], pts[:, 1]
+
+    def _world_from_obj_i(self, s, i, Wobj):
+        slot = self._slots[s]
+        if slot.body < 0:
+            return slot.frame_from_obj
+        M = np.eye(4)
+        M[:3, :3] = Wobj[0][i, s]
+        M[:3, 3] = Wobj[1][i, s]
+        return M
+
+    def _hb(self, s, Rs, ts, U):
+        """World support of slot ``s`` along ``U (k, m, 3)``, slot poses ``Rs (k, 3, 3)``, ``ts (k, 3)``."""
+        slot = self._slots[s]
+        if slot.body < 0:
+            return _support_local(slot.shape, U)
+        return _dot(U, ts[:, None]) + _support_local(slot.shape, _rows_times(U, Rs[:, None]))
+
+    def _project_b(self, s, Rs, ts, pts):
+        """Closest points of slot ``s`` (world) to world points ``(k, m, 3)``."""
+        slot = self._slots[s]
+        if slot.body < 0:
+            return _closest_local(slot.shape, pts)
+        Rm, tm = Rs[:, None], ts[:, None]
+        return _times_rows(Rm, _closest_local(slot.shape, _rows_times(pts - tm, Rm))) + tm
+
+    def _exact_batch(self, p, I, R, t, Wobj, cheap_sp, scratch, dist, upper, known, wb, wo):
+        """Exact bound of pair ``p`` in configurations ``I (k,)`` (see ``_exact_pair``), written in place."""
+        k = len(I)
+        pad = self._pair_pad[p]
+        best_lb = np.full(k, np.inf)
+        best_up = np.full(k, np.inf)
+        best_known = np.ones(k, dtype=bool)
+        best_wb = np.full((k, 3), np.nan)
+        best_wo = np.full((k, 3), np.nan)
+        for mm in self._pair_sps[p]:
+            sa, sb = int(self._sp_a[mm]), int(self._sp_b[mm])
+            if self._sp_analytic[mm]:
+                exact_sp, upper_sp, wb_sp, wo_sp = scratch
+                e = exact_sp[I, mm]
+                bt = e < best_lb
+                best_lb = np.where(bt, e, best_lb)
+                best_wb = np.where(bt[:, None], wb_sp[I, mm], best_wb)
+                best_wo = np.where(bt[:, None], wo_sp[I, mm], best_wo)
+                best_up = np.minimum(best_up, upper_sp[I, mm])
+                continue
+            A, B = self._slots[sa], self._slots[sb]
+            Ra, ta, Rb, tb = R[I, sa], t[I, sa], R[I, sb], t[I, sb]
+            d_fcl, p0, p1 = self._fcl_batch(sa, sb, I, Wobj)
+            fin = (np.isfinite(p0).all(axis=1) & np.isfinite(p1).all(axis=1) & np.isfinite(d_fcl)
+                   & (np.abs(p0).max(axis=1) < 1e6) & (np.abs(p1).max(axis=1) < 1e6))
+            if not fin.all():  # no usable witness (seen for meshes in contact)
+                p0[~fin] = np.nan
+                p1[~fin] = np.nan
+                d_fcl = np.where(fin | np.isfinite(d_fcl), d_fcl, 0.0)
+            v = p1 - p0
+            nv = np.where(np.isfinite(v).all(axis=1), np.sqrt(_dot(v, v)), 0.0)
+            bad = (nv > 0) & (np.abs(nv - np.abs(d_fcl)) > 1e-6 * np.maximum(1.0, np.abs(d_fcl)))
+            for j in np.flatnonzero(bad).tolist():
+                # python-fcl sometimes returns a witness in its object's local frame (seen for
+                # mesh-sphere pairs): take the reading whose separation matches the distance
+                i = int(I[j])
+                Ma, Mb = self._world_from_obj_i(sa, i, Wobj), self._world_from_obj_i(sb, i, Wobj)
+                cand = []
+                for x, y in ((p0[j], p1[j]), (p1[j], p0[j])):
+                    for xa in (x, Ma[:3, :3] @ x + Ma[:3, 3]):
+                        for yb in (y, Mb[:3, :3] @ y + Mb[:3, 3]):
+                            cand.append((xa, yb))
+                C = np.array(cand)
+                err = np.abs(np.sqrt(_dot(C[:, 1] - C[:, 0], C[:, 1] - C[:, 0])) - abs(d_fcl[j]))
+                p0[j], p1[j] = C[int(np.argmin(err))]
+                vj = p1[j] - p0[j]
+                nv[j] = float(np.sqrt(vj @ vj))
+            v = p1 - p0
+            ok = nv > 1e-12
+            u = np.where(ok[:, None], v / np.where(ok, nv, 1.0)[:, None], np.array([0.0, 0.0, 1.0]))
+            U = np.stack([u, -u], axis=1)  # (k, 2, 3): witness direction, both signs
+            h_a = self._hb(sa, Ra, ta, U)
+            e0 = np.minimum(np.abs(h_a[:, 0] - _dot(U[:, 0], p0)), np.abs(h_a[:, 1] - _dot(U[:, 1], p0)))
+            e1 = np.minimum(np.abs(h_a[:, 0] - _dot(U[:, 0], p1)), np.abs(h_a[:, 1] - _dot(U[:, 1], p1)))
+            swap = (ok & (e1 < e0))[:, None]
+            pa, pb = np.where(swap, p1, p0), np.where(swap, p0, p1)
+            lb = cheap_sp[I, mm].copy()
+            if B.kind == _KIND_MESH:
+                # where python-fcl reports contact the depth is unknown whatever the bound (see below)
+                sep = np.flatnonzero(d_fcl > 0.0)
+                if sep.size:
+                    lb[sep] = np.maximum(lb[sep], self._mesh_bound_batch(
+                        sa, Ra[sep], ta[sep], B, U[sep], ok[sep], h_a[sep], np.maximum(nv[sep], d_fcl[sep])))
+                inside = np.zeros(k, dtype=bool)
+                cand = (lb - pad > 0.0) & (d_fcl > 0.0)
+                if B.shape.watertight and cand.any():
+                    pt = _times_rows(Ra[cand], A.interior) + ta[cand]
+                    inside[cand] = self._inside_zone_mesh(B, pt)
+                cand &= ~inside
+                if cand.any():  # the zone wholly inside the body: a mesh vertex inside the body solid
+                    v0 = _rows_times(B.shape.vertices[0] - ta[cand], Ra[cand])
+                    inside[cand] = g.contains_points(A.shape, v0)
+                kn = ~(inside | (lb - pad <= 0.0) | (d_fcl <= 0.0))
+                lb = np.where(kn, lb, np.inf)  # replaced by the sentinel below
+                up = np.where(d_fcl > 0, nv, 0.0)
+            else:
+                kn = np.ones(k, dtype=bool)
+                gap = (-self._hb(sb, Rb, tb, -U) - h_a).max(axis=1)
+                lb = np.where(ok, np.maximum(lb, gap), lb)
+                if _PROJECTABLE(A.shape) and _PROJECTABLE(B.shape):
+                    ref = np.flatnonzero((d_fcl > 0) & (nv - lb > 1e-8))
+                    if ref.size:
+                        # python-fcl's witness direction is a little off: refine it by alternating
+                        # projections (converge to the closest pair of two convex sets)
+                        Ra_, ta_, Rb_, tb_ = Ra[ref], ta[ref], Rb[ref], tb[ref]
+                        x = pb[ref][:, None]
+                        for _ in range(6):
+                            ya = self._project_b(sa, Ra_, ta_, x)
+                            x = self._project_b(sb, Rb_, tb_, ya)
+                        w = (x - ya)[:, 0]
+                        nw = np.sqrt(_dot(w, w))
+                        okw = nw > 1e-12  # False for NaN witnesses
+                        Uw = np.where(okw[:, None], w / np.where(okw, nw, 1.0)[:, None], np.array([0.0, 0.0, 1.0]))[:, None]
+                        gw = (-self._hb(sb, Rb_, tb_, -Uw) - self._hb(sa, Ra_, ta_, Uw))[:, 0]
+                        lb[ref] = np.where(okw, np.maximum(lb[ref], gw), lb[ref])
+                if B.body < 0:
+                    chk = np.flatnonzero(cheap_sp[I, mm] <= 0.0)
+                    if chk.size:
+                        # analytic inside test: a point of the body inside the zone, a point of the zone in the body
+                        pt = _times_rows(Ra[chk], A.interior) + ta[chk]
+                        zin = _rows_times(B.interior - ta[chk], Ra[chk])
+                        ins = g.contains_points(B.shape, pt) | g.contains_points(A.shape, zin)
+                        lb[chk] = np.where(ins, np.minimum(lb[chk], 0.0), lb[chk])
+                up = np.where(d_fcl > 0, nv, np.minimum(d_fcl, 0.0))
+            upd = ~kn | (lb < best_lb)
+            best_known &= kn
+            best_wb = np.where(upd[:, None], pa, best_wb)
+            best_wo = np.where(upd[:, None], pb, best_wo)
+            best_lb = np.where(kn & (lb < best_lb), lb, best_lb)
+            best_up = np.minimum(best_up, up)
+        v = best_lb - pad
+        unknown = np.where(np.isfinite(best_lb) & (v < 0.0), v, DEPTH_UNKNOWN)
+        dist[I, p] = np.where(best_known, v, unknown)
+        upper[I, p] = best_up - pad
+        known[I, p] = best_known
+        wb[I, p] = best_wb
+        wo[I, p] = best_wo
+
+    @staticmethod
+    def _inside_zone_mesh(slot, pts):
+        """``(k,)`` bool: points inside a watertight zone mesh, for points known to be off its surface.
+
+        Only called where the body's bound to every triangle is positive, so the point is strictly
+        off the surface: the winding number (exactly 0 or +-1 there) then agrees with trimesh's ray
+        test, which is the fallback for a mesh that is not consistently wound.
+        """
+        if slot.wound:
+            return np.abs(g.winding_number(slot.shape, pts)) > 0.5
+        return g.contains_points(slot.shape, pts)
+
+    def _mesh_bound_batch(self, sa, Ra, ta, slot_b, U, ok, h_u, level):
+        """``_mesh_bound`` over configurations: body slot ``sa`` posed ``Ra (k, 3, 3)``, ``ta (k, 3)``,
+        witness directions ``U (k, 2, 3)`` (used where ``ok``) with the body's supports ``h_u (k, 2)``;
+        returns ``(k,)``.
+
+        The mesh bound is a minimum over triangles of ``max(gap, sphere bound)``. A cheaper bound on
+        each triangle's value (its sphere bound, and its gap along the triangle normal with the body's
+        outer box in place of the body) limits the work: a triangle whose cheaper bound is not below
+        the minimum over the evaluated ones cannot attain the minimum, so the value is the full minimum
+        (``level (k,)`` is a guess of it, python-fcl's distance, used only to choose the first set).
+        """
+        cen, rt, nrm, tris = slot_b.tri_centers, slot_b.tri_radius, slot_b.tri_normals, slot_b.tris
+        k, T = len(ta), len(cen)
+        slot_a = self._slots[sa]
+        ca = _times_rows(Ra, slot_a.center) + ta  # (k, 3)
+        dd = cen[None] - ca[:, None]
+        sph = np.sqrt(_dot(dd, dd)) - rt - slot_a.radius  # (k, T)
+        # outer-box gap along +-normal: tri_min(u) - h_outer(u)
+        oc = _times_rows(Ra, slot_a.outer[0]) + ta  # (k, 3)
+        ow = _times_rows(Ra[:, None], slot_a.outer[1])  # (k, 3, 3) rows
+        zz = _times_rows(Ra, slot_a.zaxis)
+        pn = _dot(nrm[None], oc[:, None])  # (k, T)
+        spread = slot_a.r + sum(np.abs(_dot(nrm[None], ow[:, None, j])) for j in range(3))
+        if slot_a.rho:
+            uz = _dot(nrm[None], zz[:, None])
+            spread = spread + slot_a.rho * np.sqrt(np.maximum(1.0 - uz * uz, 0.0))
+        tv = _dot(nrm, tris[:, 0])  # a triangle is flat: every vertex has the same offset along its normal
+        tv = np.minimum(np.minimum(tv, _dot(nrm, tris[:, 1])), _dot(nrm, tris[:, 2]))
+        tv_hi = np.maximum(np.maximum(_dot(nrm, tris[:, 0]), _dot(nrm, tris[:, 1])), _dot(nrm, tris[:, 2]))
+        # along +n: tri_min(n) - h(n) >= tv - (pn + spread); along -n: -tv_hi - h(-n) >= -tv_hi + pn - spread
+        pre = np.maximum(sph, np.maximum(tv - pn - spread, pn - spread - tv_hi))
+        # first every triangle whose cheaper bound is below python-fcl's distance (+1 mm): the minimum
+        # is normally among them; where the minimum found is above that level, the remaining
+        # triangles below the minimum are evaluated too (python-fcl's value only orders the work)
+        level = np.where(np.isfinite(level), level + 1e-3, np.inf)
+        best = np.full(k, np.inf)
+        todo = pre < level[:, None]
+        for _ in range(2):
+            ci, ti = np.nonzero(todo)
+            if ci.size:
+                np.minimum.at(best, ci, self._tri_bound(sa, Ra, ta, ca, slot_b, U, ok, h_u, ci, ti, sph[ci, ti]))
+            todo = (pre >= level[:, None]) & (pre < best[:, None]) & (best > level)[:, None]
+            if not todo.any():
+                break
+        return best
+
+    def _tri_bound(self, sa, Ra, ta, ca, slot_b, U, ok, h_u, ci, ti, sph):
+        """Bound from body slot ``sa`` (configuration ``ci``) to mesh triangle ``ti``, ``(m,)`` each."""
+        tris, cen = slot_b.tris[ti], slot_b.tri_centers[ti]
+        nrm = slot_b.tri_normals[ti]
+        Rm, tm, cm = Ra[ci], ta[ci], ca[ci]
+        slot_a = self._slots[sa]
+        dc = _unit(cen - cm, np.array([0.0, 0.0, 1.0]))  # (m, 3)
+        q = g.closest_on_triangles(tris, cm)
+        if _PROJECTABLE(slot_a.shape):
+            for _ in range(3):
+                c = self._project_b(sa, Rm, tm, q[:, None])[:, 0]
+                q = g.closest_on_triangles(tris, c)
+            dq = _unit(q - c, dc)
+        else:
+            dq = _unit(q - cm, dc)
+        D = np.stack([nrm, -nrm, dc, dq], axis=1)  # (m, 4, 3)
+        h_a = _dot(D, tm[:, None]) + _support_local(slot_a.shape, _rows_times(D, Rm[:, None]))
+
+        def tri_min(D):
+            return np.minimum(np.minimum(_dot(D, tris[:, None, 0]), _dot(D, tris[:, None, 1])), _dot(D, tris[:, None, 2]))
+
+        gap = (tri_min(D) - h_a).max(axis=1)
+        # the witness directions (both signs), where python-fcl gave one
+        gw = (tri_min(U[ci]) - h_u[ci]).max(axis=1)
+        gap = np.where(ok[ci], np.maximum(gap, gw), gap)
+        return np.maximum(gap, sph)
 
     # ------------------------------------------------------------------------------- exact queries
     def _obj(self, s, i, R, t, cache):

@@ -103,7 +103,12 @@ def _summary_line(result) -> str:
     return f"verdict: {result.verdict.upper()}  ({len(result.rows)} target x branch rows: {parts})"
 
 
-def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool, pitch_mm: float = 20.0):
+CHECK_SPACE_PITCH_MM = 40.0
+"""Voxel edge (mm) of the space check inside ``envelope check`` (``envelope space`` defaults to 20 mm)."""
+
+
+def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool,
+                          pitch_mm: float = CHECK_SPACE_PITCH_MM):
     import dataclasses
 
     from .cell import load_cell
@@ -125,13 +130,13 @@ def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool, 
         click.echo(json.dumps(_json_summary(result, files), indent=2, sort_keys=True))
     else:
         click.echo(_summary_line(result))
-        click.echo(_space_line(space))
         worst = [i for i in result.worst_first() if result.rows[i].twin_of < 0]
         for row_index in worst[:10]:
             row = result.rows[row_index]
             if row.status == "clear":
                 break
             click.echo(f"  {_row_text(row)}")
+        click.echo(_space_line(space))
         click.echo(f"report: {files['report.html']}")
     return result
 
@@ -181,8 +186,10 @@ def _json_summary(result, files) -> dict:
 @click.option("--jobs", type=click.IntRange(1, 256), default=1, show_default=True,
               help="Worker processes for the clearance computation (results are identical).")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary on stdout.")
-@click.option("--pitch", "pitch_mm", type=click.FloatRange(min=1.0, max=500.0), default=20.0, show_default=True,
-              metavar="MM", help="Voxel edge of the maximum, restricted and operating spaces, mm.")
+@click.option("--pitch", "pitch_mm", type=click.FloatRange(min=1.0, max=500.0), default=CHECK_SPACE_PITCH_MM,
+              show_default=True, metavar="MM",
+              help="Voxel edge of the maximum, restricted and operating spaces, mm (coarser than `envelope space`'s "
+                   "default to keep the check quick; a coarser space over-approximates more).")
 @_guarded
 def check(cell: Path, out: Path, jobs: int, as_json: bool, pitch_mm: float) -> None:
     """Check every target of CELL in every IK branch (and its programs, if any), and its spaces.
@@ -231,6 +238,10 @@ def space(cell: Path, out: Path, risk, pitch_mm: float, jobs: int) -> None:
     for d in sc.devices:
         if not d.passes:
             click.echo(f"  device {d.name}: {d.check.note}")
+    for k in sc.keepouts:
+        if not k.passes:
+            click.echo(f"  keep-out {k.zone}: {k.distance_mm:.0f} mm from the space < {k.required_mm:g} mm "
+                       "(reported, not counted)")
     sug = sc.suggestion
     click.echo(("suggested axis limits: " if sug.found else "no suggested axis limits: ") + sug.reason)
     click.echo(f"files: {out} ({', '.join(sorted(files))})")

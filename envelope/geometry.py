@@ -471,3 +471,39 @@ def closest_on_triangles(tris, points) -> np.ndarray:
     out = np.where(((d3 >= 0) & (d4 <= d3))[:, None], b, out)
     out = np.where(((d1 <= 0) & (d2 <= 0))[:, None], a, out)
     return out
+
+
+def winding_number(shape, points) -> np.ndarray:
+    """``(k,)`` generalised winding number of a closed ``TriMesh`` about each point (``(k, 3)``).
+
+    The sum of the signed solid angles of the triangles seen from the point, over 4 pi, with the
+    closed form of van Oosterom and Strackee, "The solid angle of a plane triangle", IEEE Trans.
+    Biomed. Eng. 30 (1983). For a watertight, consistently wound mesh it is +-1 (the sign follows the
+    winding) for a point inside and 0 outside; it is not reliable for a point on the surface itself.
+    """
+    p, single = _promote(points)
+    tris = _cached(shape, "tris", lambda: np.asarray(shape.vertices)[np.asarray(shape.faces)])  # (T, 3, 3)
+    a = tris[None, :, 0] - p[:, None]
+    b = tris[None, :, 1] - p[:, None]
+    c = tris[None, :, 2] - p[:, None]
+
+    def dot(x, y):
+        return x[..., 0] * y[..., 0] + x[..., 1] * y[..., 1] + x[..., 2] * y[..., 2]
+
+    la, lb, lc = np.sqrt(dot(a, a)), np.sqrt(dot(b, b)), np.sqrt(dot(c, c))
+    bxc = np.stack([b[..., 1] * c[..., 2] - b[..., 2] * c[..., 1], b[..., 2] * c[..., 0] - b[..., 0] * c[..., 2],
+                    b[..., 0] * c[..., 1] - b[..., 1] * c[..., 0]], axis=-1)
+    num = dot(a, bxc)
+    den = la * lb * lc + dot(a, b) * lc + dot(a, c) * lb + dot(b, c) * la
+    w = np.arctan2(num, den).sum(axis=1) / (2.0 * np.pi)
+    return float(w[0]) if single else w
+
+
+def is_consistently_wound(shape) -> bool:
+    """True if every edge of a ``TriMesh`` is used once in each direction (closed and consistently wound)."""
+    f = np.asarray(shape.faces)
+    if not len(f):
+        return False
+    e = np.concatenate([f[:, [0, 1]], f[:, [1, 2]], f[:, [2, 0]]])
+    fwd = {(int(i), int(j)) for i, j in e}
+    return len(fwd) == len(e) and all((j, i) in fwd for i, j in fwd)

@@ -22,6 +22,11 @@ Flat order: ``index = ((o * nx + ix) * ny + iy) * nz + iz`` for orientation ``o`
 Geometry (python-fcl objects do not pickle) is built once per process: ``_engine`` keeps one
 ``ClearanceEngine`` per cell fingerprint (a SHA-256 of the cell's geometry and limits), so a Dask
 worker that receives a fresh copy of the cell with every task still builds it only once.
+
+Two methods (docs/maps.md): ``"exact"`` runs the clearance engine on every within-limits branch;
+``"fast"`` (default) first brackets every branch's worst margin with vectorised bounds
+(``FastBounds``) and runs the engine only where they cannot decide the verdict or the pose's best
+margin to 0.5 mm.
 """
 
 from __future__ import annotations
@@ -636,7 +641,7 @@ def _run_dask(cell, grid, bounds, todo, key, address, jobs, finished, method):
     cluster = None
     if address == "local":
         cluster = LocalCluster(n_workers=jobs if jobs > 1 else 2, threads_per_worker=1, processes=True,
-                               dashboard_address=None)
+                               dashboard_address=":0")
         client = Client(cluster)
     else:
         try:
@@ -1012,7 +1017,7 @@ class FastBounds:
                 if isinstance(s, gm.TriMesh):
                     s = gm.convex_hull(s)
                 c, r = gm.bounding_sphere(s)
-                kind = "convex" if isinstance(s, (gm.Convex, gm.Box, gm.Sphere, gm.Capsule, gm.Cylinder)) else "other"
+                kind = "convex" if isinstance(s, (gm.Convex, gm.Box, gm.Sphere, gm.Capsule)) else "other"
                 slots.append(dict(kind=kind, shape=s, frame=int(b.frame), center=np.array(c), radius=float(r),
                                   pad=float(b.padding)))
                 ids.append(len(slots) - 1)
@@ -1025,7 +1030,8 @@ class FastBounds:
                     kind, c, r = "half", np.zeros(3), np.inf
                 else:
                     c, r = gm.bounding_sphere(s)
-                    kind = "mesh" if isinstance(s, gm.TriMesh) else "convex"
+                    kind = ("mesh" if isinstance(s, gm.TriMesh) else
+                            "convex" if isinstance(s, (gm.Convex, gm.Box, gm.Sphere, gm.Capsule)) else "other")
                 slots.append(dict(kind=kind, shape=s, frame=-1, center=np.array(c), radius=float(r), pad=0.0))
                 ids.append(len(slots) - 1)
             zone_slots.append(ids)
@@ -1139,8 +1145,8 @@ class FastBounds:
         Ra, Rb = R[rows, ac], R[rows, bc]
         oa = np.einsum("kij,kj->ki", Ra, self.S_oc[ac]) + t[rows, ac]
         ob = np.einsum("kij,kj->ki", Rb, self.S_oc[bc]) + t[rows, bc]
-        wa = np.einsum("kij,kmj->kmi", Ra, self.S_ow[ac])  # (k, 3, 3) world half-axes (rows)
-        wb = np.einsum("kij,kmj->kmi", Rb, self.S_ow[bc])
+        wa = self.S_ow[ac] @ np.swapaxes(Ra, 1, 2)  # (k, 3, 3) world half-axes (rows)
+        wb = self.S_ow[bc] @ np.swapaxes(Rb, 1, 2)
         dc = ob - oa
         u0 = dc / np.maximum(np.sqrt(_dot(dc, dc)), 1e-300)[:, None]
         U = np.concatenate([u0[:, None], _unit_rows(wa), _unit_rows(wb)], axis=1)  # (k, 7, 3)
@@ -1213,7 +1219,11 @@ class FastBounds:
             if test.any() and zone["shape"].watertight:
                 ip = gm.interior_point(body["shape"])
                 pts = np.einsum("kij,j->ki", Ra[test], ip) + ta[test]
-                inside = gm.contains_points(zone["shape"], pts)
+                vz = np.asarray(zone["shape"].vertices)
+                box = ((pts >= vz.min(axis=0)) & (pts <= vz.max(axis=0))).all(axis=1)  # outside the box: outside
+                inside = np.zeros(len(pts), bool)
+                if box.any():
+                    inside[box] = gm.contains_points(zone["shape"], pts[box])
                 idx = np.flatnonzero(test)[inside]
                 new[idx] = -np.inf
             if test.any():
@@ -1246,6 +1256,7 @@ class FastBounds:
                 p, r = np.zeros((1, 3)), 0.0
             pts.append(np.asarray(p, dtype=np.float64))
             rad.append(float(r))
+        self._Vs = pts  # unpadded, for the support search
         vmax = max(len(p) for p in pts)
         out = np.empty((len(pts), vmax, 3))
         for i, p in enumerate(pts):
@@ -1255,13 +1266,17 @@ class FastBounds:
 
     def _supp(self, slots, R, t, u):
         """World support points ``(k, 3)`` of ``slots (k,)`` posed by ``R, t`` along ``u (k, 3)``."""
-        local = np.einsum("kji,kj->ki", R, u)
-        V = self._V[slots]  # (k, Vmax, 3)
-        j = np.argmax(np.einsum("kvc,kc->kv", V, local), axis=1)
-        p = V[np.arange(len(slots)), j]
+        local = (u[:, None, :] @ R)[:, 0]  # R^T u
+        p = np.empty_like(local)
+        order = np.argsort(slots, kind="stable")
+        ss = slots[order]
+        cuts = np.flatnonzero(np.diff(ss)) + 1
+        for grp in np.split(order, cuts):
+            V = self._Vs[int(slots[grp[0]])]
+            p[grp] = V[np.argmax(local[grp] @ V.T, axis=1)]
         r = self._r[slots]
-        nu = np.sqrt((u * u).sum(-1))
-        p = np.einsum("kij,kj->ki", R, p) + t
+        nu = np.sqrt(_dot(u, u))
+        p = (R @ p[:, :, None])[:, :, 0] + t
         return p + (r / np.where(nu > 0, nu, 1.0))[:, None] * u
 
     def refine(self, R, t, items, lo, hi, tol=FAST_TOL, block=4096):
@@ -1348,6 +1363,7 @@ class FastBounds:
         if self.n_pairs == 0:
             inf = np.full(N, np.inf)
             return inf, inf, np.ones(N, bool), 0
+        # diagnostics of the last call: configurations sent to the engine, by reason
         self.stats = {"mesh": 0, "blocked": 0, "rounds": 0, "undecided": 0}
         R, t, lo_d, hi_d = self.bounds(q)
         # the engine's value is only known not to go below these bounds for separated solids (and,
@@ -1383,20 +1399,18 @@ class FastBounds:
                 break
             blocked = (need & tried).any(axis=1)  # a mesh pair or an unconverged pair decides: engine
             self.stats["mesh"] += int(((need & tried & self.sp_mesh).any(axis=1) & ~engine_rows).sum())
-            if getattr(self, "debug", False):
-                import collections
-                rr, cc = np.nonzero(need & tried & ~engine_rows[:, None])
-                self.stats.setdefault("who", collections.Counter()).update(
-                    (self.names[c], bool(self.sp_mesh[c]), bool(np.isneginf(lo_m[r_, c]))) for r_, c in zip(rr, cc))
             self.stats["blocked"] += int((blocked & ~engine_rows).sum())
             engine_rows |= blocked
             need &= ~blocked[:, None]
             # the three lowest bounds of every configuration first: the worst pair is usually among them
             key = np.where(need, lo_m, np.inf)
+            # zone meshes last: their bound is costly and gets cheaper as the worst margin drops
+            other = (need & ~self.sp_mesh).any(axis=1)
+            key = np.where(self.sp_mesh & other[:, None], np.inf, key)
             order = np.argsort(key, axis=1)[:, :(3 if rnd < 2 else 6 * rnd)]
             r3 = np.repeat(np.arange(N), order.shape[1])
             c3 = order.ravel()
-            sel = need[r3, c3]
+            sel = need[r3, c3] & ~np.isposinf(key[r3, c3])
             rows, cols = r3[sel], c3[sel]
             if not len(rows):
                 break

@@ -12,7 +12,8 @@ cell's Z axis is glTF's up axis (+Y).
 - ``posed_link_meshes(cell, q)``: every moving body in the cell (world) frame;
 - ``zone_meshes(cell, extent)``: every zone panel in the cell frame (``zone_panel_names``);
 - ``cell_extent(cell, qs=None, points=None)``: the ``(2, 3)`` box a drawing covers;
-- ``row_scene(cell, row)`` / ``export_glb(scene, path)``: a coloured scene of one check row.
+- ``row_scene(cell, row)`` / ``export_glb(scene, path)``: a coloured scene of one check row;
+- ``motion_scene(cell, motion)``: a scene of a motion's worst configuration.
 """
 
 from __future__ import annotations
@@ -326,6 +327,66 @@ def row_scene(cell, row, *, extent=None) -> trimesh.Scene:
         )
     for (zone, panel), mesh in zone_meshes(cell, extent).items():
         offended = parts.zones.get((zone, panel)) in ("intrusion", "below margin")
+        rgba = ZONE_OFFENDED_RGBA if offended else ZONE_RGBA
+        name = zone_node_name(zone, panel)
+        scene.add_geometry(
+            _coloured(mesh, rgba, "offended zone" if offended else "zone"), node_name=name, geom_name=name,
+            transform=GLTF_FROM_CELL,
+        )
+    return scene
+
+
+MOTION_OTHER_RGBA = (175, 175, 175, 255)
+"""Light grey: a moving body that is not in the pair deciding a motion (its status is not certified)."""
+
+
+def motion_parts(cell, motion) -> tuple:
+    """``(bodies, zone panels)`` of the pair that decides ``motion`` (a ``MotionRow``).
+
+    ``bodies`` holds ``closest_body`` and, for a self pair, the other body; ``zone panels`` the
+    ``(zone, panel)`` named by ``closest_other`` (``zone/panel``, or ``zone`` for a one-shape zone).
+    """
+    body_names = {b.name for b in cell.bodies}
+    bodies = {motion.closest_body} & body_names
+    zones = set()
+    other = motion.closest_other
+    if other in body_names:
+        bodies.add(other)
+    elif other:
+        from types import SimpleNamespace
+
+        from .clearance import pair_other_name
+
+        for zone in cell.zones:  # the panel whose name the clearance engine gives as ``other``
+            for panel in zone_panel_names(zone):
+                if pair_other_name(SimpleNamespace(other=zone.name, panel=panel)) == other:
+                    zones.add((zone.name, panel))
+    return bodies, zones
+
+
+def motion_scene(cell, motion, *, extent=None) -> trimesh.Scene:
+    """A 3-D scene of a motion's worst configuration (``MotionRow.q_at_min``, finite) in the cell frame.
+
+    The same nodes as ``row_scene`` (``body:<name>``, ``zone_node_name(zone, panel)``). The body (or
+    bodies, for a self pair) of the pair that decides the motion takes the colour of the motion's
+    status (``STATUS_RGBA``), every other body ``MOTION_OTHER_RGBA``: the sweep certifies the deciding
+    pair's bound over the move, not a status per body. The deciding zone panel is translucent red when
+    the motion is a finding (intrusion, below margin), every other zone translucent grey.
+    """
+    q = np.asarray(motion.q_at_min, dtype=np.float64)
+    if extent is None:
+        extent = cell_extent(cell, qs=[q])
+    bodies, zones = motion_parts(cell, motion)
+    finding = motion.status in ("intrusion", "below margin")
+    scene = trimesh.Scene()
+    for name, mesh in posed_link_meshes(cell, q, extent=extent).items():
+        rgba = STATUS_RGBA.get(motion.status, STATUS_RGBA["clear"]) if name in bodies else MOTION_OTHER_RGBA
+        label = motion.status if name in bodies else "other body"
+        scene.add_geometry(
+            _coloured(mesh, rgba, label), node_name=f"body:{name}", geom_name=f"body:{name}", transform=GLTF_FROM_CELL
+        )
+    for (zone, panel), mesh in zone_meshes(cell, extent).items():
+        offended = finding and (zone, panel) in zones
         rgba = ZONE_OFFENDED_RGBA if offended else ZONE_RGBA
         name = zone_node_name(zone, panel)
         scene.add_geometry(

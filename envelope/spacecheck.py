@@ -24,7 +24,7 @@ import io
 import json
 import math
 import time
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -56,6 +56,9 @@ __all__ = [
     "AxisSuggestion",
     "run_space_check",
     "suggest_axis_limits",
+    "keepout_checks",
+    "device_checks",
+    "suggestion_record",
     "space_summary",
     "write_space_outputs",
     "write_space_files",
@@ -155,7 +158,8 @@ class SpaceCheck:
         The stopping allowance the restricted space is grown by (m).
     maximum, restricted : Space
     operating : Space or None
-        None when there was no configuration to use.
+        The within-limits rows of the check that are within the soft limits, and the extra
+        configurations; None when there was no configuration to use.
     operating_count : int
         Configurations in the operating space.
     panels : tuple of PanelVerdict
@@ -288,11 +292,12 @@ def device_checks(cell, space: Space) -> tuple:
     return tuple(out)
 
 
-def _row_configurations(result) -> np.ndarray:
-    """``(n, 6)`` joint values of the within-limits rows (clear, below margin, intrusion) of a check."""
+def _row_configurations(result, limits) -> np.ndarray:
+    """``(n, 6)`` joint values of the within-limits rows (clear, below margin, intrusion) of a check that
+    are also within ``limits`` (the soft limits), turn variants once."""
     qs = [np.asarray(r.q, dtype=np.float64) for r in result.rows
           if r.status not in ("outside limits", "unreachable") and r.twin_of < 0
-          and np.isfinite(np.asarray(r.q, dtype=np.float64)).all()]
+          and np.isfinite(np.asarray(r.q, dtype=np.float64)).all() and _within(np.asarray(r.q), limits)]
     return np.array(qs, dtype=np.float64).reshape(-1, N_JOINTS)
 
 
@@ -340,7 +345,7 @@ def run_space_check(cell, *, result=None, pitch: float = DEFAULT_PITCH, risk: st
 
     parts = []
     if result is not None:
-        parts.append(_row_configurations(result))
+        parts.append(_row_configurations(result, limits))
     extra = None
     if configurations is not None:
         extra = np.asarray(configurations, dtype=np.float64)
@@ -540,7 +545,9 @@ def _blocking(clear, faults, grid, limits):
                 good = True
                 break
             j = min(ks)
-            why.append(f"{b} at q1 = {_deg(q[0]):.1f} deg: {', '.join(faults[j])}")
+            line = f"q1 = {_deg(q[0]):.1f} deg: {', '.join(faults[j])}"
+            if line not in why:
+                why.append(line)
         if not usable:
             why.append("no clear branch within the other joints' limits")
         if not good:
@@ -548,7 +555,8 @@ def _blocking(clear, faults, grid, limits):
             texts.append(f"target {target!r} ({'; '.join(why)})")
     if blocked:
         return blocked, ("every clear branch of " + "; ".join(texts)
-                         + " needs joint 1 in a sector where the restricted space fails these")
+                         + " needs joint 1 in a sector where the restricted space fails the panel or keep-out "
+                         "zone named")
     return [], ""
 
 
@@ -604,11 +612,10 @@ def suggest_axis_limits(cell, result, *, limits=None, pitch: float = DEFAULT_PIT
         if not np.allclose(lim, tries[-1][1]):
             tries.append(((1, 2, 3), lim))
 
-    first_faults = None
+    searched = []
     for joints, lim in tries:
         faults, candidates = _search(cell, lim, grid, clear, risk, sp)
-        if first_faults is None:
-            first_faults = (faults, lim)
+        searched.append((faults, lim, candidates))
         for missing_count, _, lo, hi, cand, picks, missing in candidates:
             if missing_count:
                 break
@@ -622,18 +629,22 @@ def suggest_axis_limits(cell, result, *, limits=None, pitch: float = DEFAULT_PIT
                 cand.flags.writeable = False
                 text = _suggestion_text(cand, changed, panels, keepouts)
                 return AxisSuggestion(True, cand, changed, tuple(picks), panels, keepouts, True, (), text, method)
-    faults, lim = first_faults
-    blocking, text = _blocking(clear, faults, grid, lim)
-    if not blocking:
-        _, candidates = _search(cell, lim, grid, clear, risk, sp)
-        if candidates:
-            best = candidates[0]
-            blocking = list(best[6])
-            text = ("no run of acceptable joint-1 sectors holds a clear branch of every target: the widest that "
-                    f"holds the most leaves out {', '.join(repr(t) for t in blocking)}")
-        else:
-            blocking = list(clear)
-            text = "every joint-1 sector fails a panel or keep-out zone"
+    # why not: the targets blocked under the most permissive joint-2/3 ranges tried (fewest blocked)
+    best = None
+    for faults, lim, candidates in searched:
+        blocking, text = _blocking(clear, faults, grid, lim)
+        if not blocking:
+            if candidates and candidates[0][0]:
+                blocking = list(candidates[0][6])
+                text = ("no run of acceptable joint-1 sectors holds a clear branch of every target: the widest "
+                        f"that holds the most leaves out {', '.join(repr(t) for t in blocking)}")
+            else:
+                blocking = list(clear)
+                text = ("the acceptable joint-1 ranges found did not verify at the check's pitch; every target "
+                        "is affected")
+        if best is None or len(blocking) <= len(best[0]):
+            best = (blocking, text)
+    blocking, text = best
     return _no_suggestion(text, blocking, method)
 
 
@@ -907,8 +918,3 @@ def write_space_outputs(space_check: SpaceCheck, out_dir) -> dict:
     text = json.dumps(space_summary(space_check), sort_keys=True, indent=1, allow_nan=False) + "\n"
     files["space.json"] = write_text_atomic(out / "space.json", text)
     return files
-
-
-def with_space(result, space_check: SpaceCheck):
-    """``result`` (a CheckResult) with its ``space`` set."""
-    return replace(result, space=space_check)

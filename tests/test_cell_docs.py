@@ -21,7 +21,8 @@ def _documented() -> set:
 
 def test_every_accepted_key_is_documented():
     keys = set(cell.TOP_KEYS + cell.ARM_KEYS + cell.JOINT_KEYS + cell.LINK_KEYS + cell.TOOL_KEYS + cell.PAYLOAD_KEYS
-               + cell.ZONE_KEYS + cell.TARGET_KEYS + cell.PROGRAM_KEYS + cell.MOVE_KEYS + cellshapes.POSE_KEYS)
+               + cell.ZONE_KEYS + cell.TARGET_KEYS + cell.PROGRAM_KEYS + cell.MOVE_KEYS + cell.DEVICE_KEYS
+               + cellshapes.POSE_KEYS)
     keys |= {k for ks in cellshapes.SHAPE_KEYS.values() for k in ks}
     keys |= set(cellshapes.SHAPE_KEYS) | set(ZONE_KINDS) | set(cellshapes.OPENING_SHAPES)
     keys |= {"shape", "parts", "parent", "frame", "tcp"}

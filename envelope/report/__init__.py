@@ -9,9 +9,12 @@
   worst rows;
 - ``report.pdf``: the same as a document;
 - ``worst-<k>-<target>.glb``: 3-D scenes of the worst row of each of the (up to) ``GLB_TARGETS`` worst
-  targets.
+  targets;
+- ``motion-<k>-<program>-<move>.glb``: 3-D scenes of the worst configuration of each of the (up to)
+  ``motions.MOTION_GLB`` worst moves.
 
-Every file is documented in docs/outputs.md. Only the HTML and PDF carry a date (``now``).
+clearance.csv and clearance.json hold the motion rows too (see ``motions``); the HTML and PDF have a
+Motions section. Every file is documented in docs/outputs.md. Only the HTML and PDF carry a date (``now``).
 """
 
 from __future__ import annotations
@@ -26,6 +29,8 @@ GLB_TARGETS = 5
 """Scenes are written for the worst row of at most this many targets (the worst)."""
 GLB_PATTERN = re.compile(r"^worst-\d+-[A-Za-z0-9_.-]*\.glb$")
 """Names of the scene files; older ones in ``out_dir`` that a new run does not write are removed."""
+MOTION_GLB_PATTERN = re.compile(r"^motion-\d+-[A-Za-z0-9_.-]*\.glb$")
+"""Names of the motion scene files (``motion-<k>-<program>-<move>.glb``), removed like ``GLB_PATTERN``."""
 
 
 def _slug(name: str) -> str:
@@ -49,6 +54,18 @@ def glb_rows(result, limit: int = GLB_TARGETS) -> list:
     return drawn_rows(result, limit)
 
 
+def motion_glb_names(result) -> dict:
+    """``{file name: index into result.motions}``: a scene ``motion-<k>-<program>-<move>.glb`` of the
+    worst configuration of each of the (up to) ``motions.MOTION_GLB`` worst moves, k = 1 the worst."""
+    from .motions import drawn_motions
+
+    out = {}
+    for k, i in enumerate(drawn_motions(result), start=1):
+        m = result.motions[i]
+        out[f"motion-{k}-{_slug(m.program)}-{int(m.move)}.glb"] = i
+    return out
+
+
 def write_report(result, out_dir, *, now=None) -> dict:
     """Write every report file of ``result`` into ``out_dir`` (created if missing).
 
@@ -63,9 +80,10 @@ def write_report(result, out_dir, *, now=None) -> dict:
     -------
     dict of str -> Path
         File name -> path of every file written: ``clearance.csv``, ``clearance.json``,
-        ``report.html``, ``report.pdf`` and each ``worst-<k>-<target>.glb``.
+        ``report.html``, ``report.pdf``, each ``worst-<k>-<target>.glb`` and each
+        ``motion-<k>-<program>-<move>.glb``.
     """
-    from ..scene import glb_bytes, row_scene
+    from ..scene import glb_bytes, motion_scene, row_scene
     from .figures import report_figures
     from .html import html_text
     from .pdf import pdf_bytes
@@ -84,10 +102,12 @@ def write_report(result, out_dir, *, now=None) -> dict:
         row = result.rows[i]
         name = f"worst-{k}-{_slug(row.target)}.glb"
         files[name] = write_bytes_atomic(out / name, glb_bytes(row_scene(result.cell, row)))
+    for name, i in motion_glb_names(result).items():
+        files[name] = write_bytes_atomic(out / name, glb_bytes(motion_scene(result.cell, result.motions[i])))
     for old in out.iterdir():
-        if GLB_PATTERN.match(old.name) and old.name not in files:
+        if (GLB_PATTERN.match(old.name) or MOTION_GLB_PATTERN.match(old.name)) and old.name not in files:
             old.unlink()
     return files
 
 
-__all__ = ["write_report", "GLB_TARGETS", "now_text", "glb_rows"]
+__all__ = ["write_report", "GLB_TARGETS", "now_text", "glb_rows", "motion_glb_names"]

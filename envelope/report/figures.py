@@ -189,12 +189,12 @@ def view_figure(result, view: str = "plan", *, rows=None, motions=()):
             textcoords="offset points", zorder=6,
         )
 
-    for k, i in enumerate(motions, start=1):
+    for k, i in reversed(list(enumerate(motions, start=1))):  # the worst (M1) drawn last, on top
         _draw_motion_arm(ax, result, i, k, axes, extent)
 
     # every target's TCP, coloured by the worst status among its rows
     worst: dict = {}
-    for row in result.rows:
+    for row in result.rows if rows or not motions else ():  # a motions-only view leaves the target dots out
         if row.target not in worst or _sev(row.status) < _sev(worst[row.target]):
             worst[row.target] = row.status
     tcps, colours = [], []
@@ -230,6 +230,12 @@ def view_figure(result, view: str = "plan", *, rows=None, motions=()):
     handles += [Patch(facecolor=status_colour(s)[:3] + (0.45,), edgecolor=status_colour(s), label=f"arm / TCP: {s}") for s in statuses]
     if motions:
         handles.append(Patch(facecolor="none", edgecolor=(0.2, 0.2, 0.2), hatch="////", linestyle="--", label="M<k>: worst configuration of a move"))
+        for k, i in enumerate(motions, start=1):
+            m = result.motions[i]
+            handles.append(Line2D(
+                [], [], marker="D", markersize=5, color=status_colour(m.status), markeredgecolor="black", linestyle="none",
+                label=f"M{k}: {m.program} move {m.move} {m.from_target} -> {m.to_target}\n      [{m.branch}] s={m.where:.2f}, {m.status}",
+            ))
     handles.append(Line2D([], [], marker="+", color="black", linestyle="none", markersize=9, label="arm base"))
     if outlines:
         handles.append(Line2D([], [], color=(0.1, 0.3, 0.85), linewidth=1.1, linestyle="--", label="restricted space"))
@@ -253,8 +259,6 @@ def motion_offended_zones(result, motions) -> set:
 
 def _draw_motion_arm(ax, result, i, k, axes, extent):
     """The arm at motion ``i``'s worst configuration: hatched, dashed outlines, diamond TCP, ``M<k>`` label."""
-    from .motions import move_label
-
     cell = result.cell
     m = result.motions[i]
     world_from_frame = world_from_frames(cell, m.q_at_min)
@@ -267,12 +271,12 @@ def _draw_motion_arm(ax, result, i, k, axes, extent):
             if poly is not None:
                 ax.add_patch(Polygon(
                     poly, closed=True, facecolor=colour[:3] + (0.18,), edgecolor=colour[:3] + (1.0,), hatch="////",
-                    linewidth=0.9, linestyle="--", zorder=3.5,
+                    linewidth=0.9, linestyle="--", zorder=3.5 - 0.01 * k,
                 ))
     tcp = to_mm((world_from_frame[6] @ cell.tool.flange_from_tcp)[:3, 3])[list(axes)]
     ax.plot([tcp[0]], [tcp[1]], marker="D", markersize=6, color=colour, markeredgecolor="black", markeredgewidth=0.6, zorder=7.5)
     ax.annotate(
-        f"M{k} {move_label(m)} [{m.branch}] s={m.where:.2f}", tcp, fontsize=6.5, xytext=(5, -9),
+        f"M{k}", tcp, fontsize=7, fontweight="bold", xytext=(6, 11 - 9 * k),
         textcoords="offset points", zorder=8, bbox={"boxstyle": "round,pad=0.15", "fc": (1, 1, 1, 0.75), "ec": "none"},
     )
 
@@ -344,6 +348,82 @@ def clearance_chart(result):
     return fig
 
 
+BRANCH_COLOURS = ("#1f77b4", "#9467bd", "#17becf", "#8c564b", "#e377c2", "#7f7f7f", "#bcbd22", "#2ca02c")
+"""Line colours of the branches within one panel of the motion chart (the status is the marker)."""
+
+
+def motion_chart(result, limit: int | None = None):
+    """Clearance along each of the worst moves, as a Figure of small multiples (one panel per move).
+
+    Panels are the ``limit`` (``motions.CHART_MOVES``) worst moves, worst first, left to right then
+    down. In a panel: one solid line per start branch, the certified clearance lower bound (mm) of the
+    pair with the smallest margin at each sampled path fraction; the same branch's required clearance
+    (allowance included) as a dashed line; a diamond at the certified minimum, coloured by status. The
+    worst branch of the move is drawn thicker; the panel title (and frame, for a finding) takes the
+    move's status colour.
+    """
+    from .motions import CHART_MOVES, worst_moves
+
+    limit = CHART_MOVES if limit is None else limit
+    moves = worst_moves(result)
+    shown = moves[:limit]
+    n = max(len(shown), 1)
+    ncols = min(3, n)
+    nrows = -(-n // ncols)
+    fig, axs = plt.subplots(nrows, ncols, figsize=(4.2 * ncols + 0.6, 3.0 * nrows + 0.8), dpi=DPI, squeeze=False)
+    for k, ax in enumerate(axs.ravel()):
+        if k >= len(shown):
+            ax.set_visible(False)
+            if not shown and k == 0:
+                ax.set_visible(True)
+                ax.text(0.5, 0.5, "no motions", transform=ax.transAxes, ha="center", va="center")
+            continue
+        group = shown[k]
+        first = result.motions[group[0]]
+        colour = status_colour(first.status)
+        drawn = False
+        for b, i in enumerate(group):
+            m = result.motions[i]
+            s = np.asarray(m.profile.s, dtype=np.float64)
+            order = np.argsort(s, kind="stable")
+            s = s[order]
+            c = to_mm(np.asarray(m.profile.clearance, dtype=np.float64)[order])
+            r = to_mm(np.asarray(m.profile.required, dtype=np.float64)[order])
+            line = BRANCH_COLOURS[b % len(BRANCH_COLOURS)]
+            lw = 1.8 if b == 0 else 1.0
+            if np.isfinite(c).any():
+                ax.plot(s, c, color=line, linewidth=lw, label=m.branch or "(no branch)", zorder=3 if b == 0 else 2)
+                drawn = True
+            if np.isfinite(r).any():
+                ax.plot(s, r, color=line, linewidth=0.9, linestyle="--", zorder=2)
+            if np.isfinite(m.where) and np.isfinite(m.min_clearance):
+                ax.plot([m.where], [float(to_mm(m.min_clearance))], marker="D", markersize=5, color=status_colour(m.status),
+                        markeredgecolor="black", markeredgewidth=0.5, linestyle="none", zorder=4)
+        if not drawn:
+            ax.text(0.5, 0.85, "no clearance profile", transform=ax.transAxes, ha="center", va="center", fontsize=8)
+        ax.set_title(f"{k + 1}. {first.program} move {first.move}: {first.from_target} -> {first.to_target}\n"
+                     f"({first.motion}) {first.status}", fontsize=8, color=colour[:3])
+        if first.status in FINDING_STATUSES:
+            for spine in ax.spines.values():
+                spine.set_edgecolor(colour[:3])
+                spine.set_linewidth(1.6)
+        ax.set_xlim(0.0, 1.0)
+        ax.grid(True, linewidth=0.3, alpha=0.5)
+        ax.tick_params(labelsize=7)
+        if k % ncols == 0:
+            ax.set_ylabel("clearance (mm)", fontsize=8)
+        if k // ncols == nrows - 1 or k + ncols >= len(shown):
+            ax.set_xlabel("path fraction s", fontsize=8)
+        if drawn:
+            ax.legend(fontsize=6.5, loc="best", title="start branch", title_fontsize=6.5)
+    title = "Clearance along each move: solid certified clearance, dashed required (allowance included), diamond the minimum"
+    if len(moves) > len(shown):
+        title += f"\n(the {len(shown)} worst of {len(moves)} moves; every move is in the motions table)"
+    fig.suptitle(title, fontsize=9)
+    fig.tight_layout()
+    return fig
+
+
 def png_bytes(fig) -> bytes:
     """The figure as PNG bytes (no software / date metadata, so re-runs give the same bytes); closes it."""
     buf = io.BytesIO()
@@ -353,11 +433,45 @@ def png_bytes(fig) -> bytes:
 
 
 def report_figures(result) -> dict:
-    """``{name: PNG bytes}``: ``plan``, ``elevation-xz``, ``elevation-yz`` and ``chart``."""
+    """``{name: PNG bytes}``: ``plan``, ``elevation-xz``, ``elevation-yz`` and ``chart``, then the
+    ``motion_figures``. A result with motions and no target rows (``envelope sweep``) has only the
+    motion figures."""
+    if not result.rows and result.motions:
+        return motion_figures(result)
     rows = drawn_rows(result)
     out = {view: png_bytes(view_figure(result, view, rows=rows)) for view in VIEWS}
     out["chart"] = png_bytes(clearance_chart(result))
+    return out | motion_figures(result)
+
+
+def motion_figures(result) -> dict:
+    """``{name: PNG bytes}`` of the motions (empty without ``MotionRow`` motions): ``motion-chart`` and
+    ``motion-plan``, ``motion-elevation-xz``, ``motion-elevation-yz`` (the worst configuration of each of
+    the ``motions.MOTION_GLB`` worst moves, no target arms). Captions in ``MOTION_CAPTIONS``."""
+    from .motions import drawn_motions, motion_rows
+
+    if not motion_rows(result):
+        return {}
+    out = {"motion-chart": png_bytes(motion_chart(result))}
+    drawn = drawn_motions(result)
+    if drawn:
+        for view in VIEWS:
+            out[f"motion-{view}"] = png_bytes(view_figure(result, view, rows=[], motions=drawn))
     return out
+
+
+MOTION_CAPTIONS = {
+    "motion-chart": "Clearance along each of the worst moves (one panel per move, worst first): a solid line per "
+    "start branch is the certified clearance lower bound (mm) of the pair with the smallest margin along the "
+    "path (path fraction 0..1), the dashed line of the same colour its required clearance with the stopping "
+    "allowance included; the diamond marks the certified minimum over the whole move (between samples it can lie below the line), coloured by status.",
+    "motion-plan": "Plan view (mm) of the worst configuration of each of the worst moves (M1 = worst, as in the "
+    "motions table), hatched with dashed outlines in the colour of the move's status, a diamond at the TCP. "
+    "Grey: zones; dark outline: fences; red: a zone that decides a move with a finding.",
+    "motion-elevation-xz": "Elevation XZ (mm) of the worst configuration of each of the worst moves, as in the motion plan view.",
+    "motion-elevation-yz": "Elevation YZ (mm) of the worst configuration of each of the worst moves, as in the motion plan view.",
+}
+"""Captions of the motion figures (report.html / report.pdf, Motions section)."""
 
 
 FIGURE_CAPTIONS = {

@@ -8,6 +8,8 @@ from html import escape
 
 from ..units import to_degrees, to_mm
 from .figures import FIGURE_CAPTIONS  # noqa: F401 - kept for importers
+from .figures import MOTION_CAPTIONS
+from .motions import MOTIONS_NOTE, STATUS_COLUMN, motion_rows, motion_table_rows, motions_text
 from .spacesection import figure_caption, html_section
 from .summary import (
     all_warnings,
@@ -97,9 +99,13 @@ def inputs_rows(result, now_text: str) -> list:
     return rows
 
 
-def _motions_html(result) -> str:
+def _motions_html(result, figures=None) -> str:
+    """The Motions section: ``MotionRow`` motions as a table worst first with their figures (see
+    ``motions``); any other motion objects as a plain dump of their simple fields."""
     if not result.motions:
         return ""
+    if motion_rows(result):
+        return _motion_rows_html(result, figures or {})
     items = []
     for m in result.motions:
         if dataclasses.is_dataclass(m):
@@ -120,6 +126,25 @@ def _motions_html(result) -> str:
     return "<h2>Motions</h2>" + _table(keys, rows)
 
 
+def _motion_rows_html(result, figures: dict) -> str:
+    header, rows, shown, total = motion_table_rows(result, HTML_ROW_LIMIT)
+    parts = ["<h2>Motions</h2>", f"<p>{_e(motions_text(result))}</p>"]
+    parts.append("<p>Moves worst first (by status, then by margin), one row per move x start branch.</p>")
+    if shown < total:
+        parts.append(f'<p class="note">The {shown} worst of {total} motion rows; every one is in clearance.csv and clearance.json.</p>')
+    html_rows = [tuple(_status(c) if k == STATUS_COLUMN else _e(c) for k, c in enumerate(r)) for r in rows]
+    parts.append(_table(header, html_rows, numeric=(0, 3, 8, 9, 10, 11, 13, 14, 16)))
+    parts.append(f'<p class="note">{_e(MOTIONS_NOTE)}</p>')
+    for name, caption in MOTION_CAPTIONS.items():
+        if name in figures:
+            data = base64.b64encode(figures[name]).decode("ascii")
+            parts.append(
+                f'<figure><img alt="{_e(name)}" src="data:image/png;base64,{data}">'
+                f"<figcaption>{_e(caption)}</figcaption></figure>"
+            )
+    return "".join(parts)
+
+
 def html_text(result, figures: dict, now_text: str) -> str:
     """The whole report.html as text."""
     summary = cell_summary(result.cell)
@@ -134,11 +159,15 @@ def html_text(result, figures: dict, now_text: str) -> str:
         "</div>",
     ]
     counts = status_counts(result)
-    parts.append(
-        f"<p>{len(result.rows)} target x branch rows for {target_count(result)} targets: "
-        + ", ".join(f"{n} {_status(s)}" for s, n in counts.items())
-        + ".</p>"
-    )
+    motions_only = not result.rows and bool(motion_rows(result))  # ``envelope sweep``: no target table
+    if not motions_only:
+        parts.append(
+            f"<p>{len(result.rows)} target x branch rows for {target_count(result)} targets: "
+            + ", ".join(f"{n} {_status(s)}" for s, n in counts.items())
+            + ".</p>"
+        )
+    if motion_rows(result):
+        parts.append(f"<p>{_e(motions_text(result))}</p>")
     parts.append("<h2>Inputs</h2>" + _table(("item", "value"), [(_e(a), _e(b)) for a, b in inputs_rows(result, now_text)]))
 
     parts.append("<h2>Cell</h2>")
@@ -175,8 +204,10 @@ def html_text(result, figures: dict, now_text: str) -> str:
     else:
         parts.append("<p>None.</p>")
 
-    parts.append("<h2>Pictures</h2>")
-    for name, png in figures.items():
+    pictures = {name: png for name, png in figures.items() if name not in MOTION_CAPTIONS}  # those: in Motions
+    if pictures:
+        parts.append("<h2>Pictures</h2>")
+    for name, png in pictures.items():
         data = base64.b64encode(png).decode("ascii")
         parts.append(
             f'<figure><img alt="{_e(name)}" src="data:image/png;base64,{data}">'
@@ -185,19 +216,20 @@ def html_text(result, figures: dict, now_text: str) -> str:
     parts.append(html_section(result, _table, _status, _e))
 
     header, rows, shown, total = clearance_table_rows(result)
-    parts.append("<h2>Clearance table (worst first)</h2>")
-    if shown < total:
-        parts.append(f'<p class="note">The {shown} worst of {total} rows; every row is in clearance.csv and clearance.json.</p>')
-    html_rows = [
-        tuple(_status(c) if k in (4, 5) else _e(c) for k, c in enumerate(r))
-        for r in rows
-    ]
-    parts.append(_table(header, html_rows, numeric=(0, 3, 6, 7, 8)))
-    parts.append(
-        '<p class="note">Clearance: the certified lower bound of the closest pair (negative: penetration). '
-        "Margin = clearance - required. Lengths in mm, angles in degrees.</p>"
-    )
-    parts.append(_motions_html(result))
+    if not motions_only:
+        parts.append("<h2>Clearance table (worst first)</h2>")
+        if shown < total:
+            parts.append(f'<p class="note">The {shown} worst of {total} rows; every row is in clearance.csv and clearance.json.</p>')
+        html_rows = [
+            tuple(_status(c) if k in (4, 5) else _e(c) for k, c in enumerate(r))
+            for r in rows
+        ]
+        parts.append(_table(header, html_rows, numeric=(0, 3, 6, 7, 8)))
+        parts.append(
+            '<p class="note">Clearance: the certified lower bound of the closest pair (negative: penetration). '
+            "Margin = clearance - required. Lengths in mm, angles in degrees.</p>"
+        )
+    parts.append(_motions_html(result, figures))
     parts.append(f'<p class="note">Written by envelope {_e(tool_version())} on {_e(now_text)}.</p>')
     parts.append("</body></html>\n")
     return "".join(parts)

@@ -109,11 +109,12 @@ def _frac(x) -> str:
     return fmt(x, FRACTION_DECIMALS)
 
 
-def csv_cells(i, m, rank: int, columns) -> list:
+def csv_cells(i, m, rank: int, columns, frame: str = "") -> list:
     """One clearance.csv row of motion row ``m`` (index ``i`` in ``result.motions``), in ``columns`` order.
 
     Target columns: ``row`` = the index in clearance.json ``motions``, ``rank`` = the worst-first rank
-    among motions, ``target`` = the move's end target, ``branch`` = its start branch, ``q*_deg`` = the
+    among motions, ``target`` = the move's end target (``frame``: the frame it was given in),
+    ``branch`` = its start branch, ``q*_deg`` = the
     configuration at the certified minimum, ``clearance_mm`` = the certified minimum; the others that do
     not apply to a move are blank.
     """
@@ -122,6 +123,7 @@ def csv_cells(i, m, rank: int, columns) -> list:
         "row": i,
         "rank": rank,
         "target": m.to_target,
+        "frame": frame,
         "branch": m.branch,
         "status": m.status,
         "clearance_mm": fmt(to_mm(m.min_clearance)),
@@ -200,11 +202,13 @@ def motion_counts(result) -> dict:
 
 
 MOTION_TABLE_HEADER = (
-    "rank", "program", "move", "from -> to", "motion", "branch", "status", "min clearance mm",
+    "rank", "drawn", "program", "move", "from -> to", "motion", "branch", "status", "min clearance mm",
     "required mm", "allowance mm", "where s", "closest pair", "first violation s", "peak speed ratio",
     "singularity crossed", "queries",
 )
-"""Columns of the motions table in report.html / report.pdf (status is column 6)."""
+"""Columns of the motions table in report.html / report.pdf (status is column ``STATUS_COLUMN``);
+``drawn`` is ``M<k>`` for the configurations drawn in the motion views and exported as scenes."""
+STATUS_COLUMN = 7
 
 
 def motion_table_rows(result, limit: int | None = None) -> tuple:
@@ -214,6 +218,7 @@ def motion_table_rows(result, limit: int | None = None) -> tuple:
     on its own under ``allowance mm``; ``where s`` and ``first violation s`` are path fractions 0..1.
     """
     order = worst_motions(result)
+    drawn = {i: f"M{k}" for k, i in enumerate(drawn_motions(result), start=1)}
     rows = []
     for pos, i in enumerate(order if limit is None else order[:limit]):
         m = result.motions[i]
@@ -221,7 +226,7 @@ def motion_table_rows(result, limit: int | None = None) -> tuple:
         pair = f"{m.closest_body} - {m.closest_other}" if m.closest_body else ""
         rows.append(
             (
-                str(pos + 1), m.program, str(m.move), f"{m.from_target} -> {m.to_target}", m.motion, branch,
+                str(pos + 1), drawn.get(i, ""), m.program, str(m.move), f"{m.from_target} -> {m.to_target}", m.motion, branch,
                 m.status, fmt(to_mm(m.min_clearance), 1), fmt(to_mm(m.required), 1), fmt(to_mm(m.allowance), 1),
                 fmt(m.where, 3), pair, fmt(m.first_violation, 3), fmt(m.peak_speed_ratio, 2), m.singular_crossed,
                 str(int(m.queries)),
@@ -244,8 +249,8 @@ def motions_text(result) -> str:
 MOTIONS_NOTE = (
     "Min clearance: the certified lower bound over the whole move of the pair with the smallest margin "
     "(never more than the true minimum; negative: penetration). Required: that pair's clearance with the "
-    "stopping allowance (and, for a linear move, the path deviation bound) included; the allowance is "
-    "also shown on its own. where s / first violation s: path fractions 0..1 of the move. Peak speed "
+    "move's stopping allowance (zone pairs only; not added to self pairs) and, for a linear move, the path "
+    "deviation bound included; the allowance is also shown on its own. where s / first violation s: path fractions 0..1 of the move. Peak speed "
     "ratio: the largest joint speed along the move over that of a joint move between the same ends "
     "(1 for a joint move). Moves are ranked worst first among themselves: by status, then by margin."
 )

@@ -18,7 +18,9 @@ from reportlab.platypus import Image, PageBreak, Paragraph, SimpleDocTemplate, S
 
 from .figures import FIGURE_CAPTIONS  # noqa: F401 - kept for importers
 from .spacesection import figure_caption, pdf_story
+from .figures import MOTION_CAPTIONS
 from .html import HTML_ROW_LIMIT, STATUS_CSS, clearance_table_rows, inputs_rows
+from .motions import MOTIONS_NOTE, STATUS_COLUMN, motion_rows, motion_table_rows, motions_text
 from .summary import all_warnings, cautions, cell_summary, fmt, status_counts, target_count, tool_version, verdict_text
 
 PDF_TITLE = "envelope clearance report"
@@ -52,6 +54,36 @@ def _image(png: bytes, max_width: float, max_height: float):
     w, h = ImageReader(io.BytesIO(png)).getSize()
     scale = min(max_width / w, max_height / h)
     return Image(io.BytesIO(png), width=w * scale, height=h * scale)
+
+
+MOTION_PDF_WIDTHS = (8, 9, 20, 8, 36, 12, 22, 18, 15, 14, 14, 11, 30, 13, 12, 14)
+"""mm: widths of the motions table's columns but the last (which takes the rest of the page)."""
+
+
+def _motion_story(result, figures: dict, styles, width, height) -> list:
+    """The Motions section: the table worst first, its note, then each motion figure on its own page."""
+    small, h2 = styles
+    tiny = small.clone("tiny", fontSize=6, leading=7)
+    header, rows, shown, total = motion_table_rows(result, HTML_ROW_LIMIT)
+    story = [PageBreak(), _p("Motions (worst first)", h2), _p(motions_text(result), small)]
+    if shown < total:
+        story.append(_p(f"The {shown} worst of {total} motion rows; every one is in clearance.csv and clearance.json.", small))
+    wrap = (2, 4, 6, 12, 15)
+    data = [[_p(h, tiny) for h in header]] + [[_p(c, tiny) if k in wrap else c for k, c in enumerate(r)] for r in rows]
+    widths = [w * mm for w in MOTION_PDF_WIDTHS]
+    widths.append(width - sum(widths))
+    table = _grid(data, col_widths=widths, font_size=6)
+    colours = [
+        ("TEXTCOLOR", (STATUS_COLUMN, k), (STATUS_COLUMN, k), colors.HexColor(STATUS_CSS.get(r[STATUS_COLUMN], "#000000")))
+        for k, r in enumerate(rows, start=1)
+    ]
+    if colours:
+        table.setStyle(TableStyle(colours))
+    story += [table, _p(MOTIONS_NOTE, small)]
+    for name, caption in MOTION_CAPTIONS.items():
+        if name in figures:
+            story += [PageBreak(), _image(figures[name], width, height - 20 * mm), _p(caption, small)]
+    return story
 
 
 def pdf_bytes(result, figures: dict, now_text: str) -> bytes:
@@ -89,7 +121,11 @@ def pdf_bytes(result, figures: dict, now_text: str) -> bytes:
     ct.setStyle(TableStyle([("BOX", (0, 0), (-1, -1), 1.2, colors.HexColor("#b58900")), ("BACKGROUND", (0, 0), (-1, -1), colors.HexColor("#fff8e1"))]))
     story += [ct, Spacer(1, 3 * mm)]
     counts = status_counts(result)
-    story.append(_p(f"{len(result.rows)} target x branch rows for {target_count(result)} targets: " + ", ".join(f"{n} {s}" for s, n in counts.items()) + ".", body))
+    motions_only = not result.rows and bool(motion_rows(result))  # ``envelope sweep``: no target table
+    if not motions_only:
+        story.append(_p(f"{len(result.rows)} target x branch rows for {target_count(result)} targets: " + ", ".join(f"{n} {s}" for s, n in counts.items()) + ".", body))
+    if motion_rows(result):
+        story.append(_p(motions_text(result), body))
 
     story.append(_p("Inputs", h2))
     story.append(_grid([["item", "value"]] + [[a, _p(b, small)] for a, b in inputs_rows(result, now_text)], col_widths=[35 * mm, width - 35 * mm]))
@@ -124,6 +160,8 @@ def pdf_bytes(result, figures: dict, now_text: str) -> bytes:
     story += [_p(f"- {w}", small) for w in warnings] or [_p("None.", body)]
 
     for name, png in figures.items():
+        if name in MOTION_CAPTIONS:
+            continue  # in the Motions section
         story.append(PageBreak())
         story.append(_image(png, width, height - 20 * mm))
         story.append(_p(figure_caption(result, name), small))
@@ -133,25 +171,28 @@ def pdf_bytes(result, figures: dict, now_text: str) -> bytes:
         story.append(PageBreak())
         story += space_story
 
-    story.append(PageBreak())
-    story.append(_p("Clearance table (worst first)", h2))
-    header, rows, shown, total = clearance_table_rows(result, HTML_ROW_LIMIT)
-    if shown < total:
-        story.append(_p(f"The {shown} worst of {total} rows; every row is in clearance.csv and clearance.json.", small))
-    keep = (0, 1, 2, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13)  # the note column is left to the CSV
-    data = [[header[k] for k in keep]] + [[_p(r[k], small) if k in (1, 9, 10, 13) else r[k] for k in keep] for r in rows]
-    widths = [10 * mm, 32 * mm, 20 * mm, 20 * mm, 20 * mm, 17 * mm, 17 * mm, 15 * mm, 22 * mm, 28 * mm, 15 * mm, 13 * mm]
-    widths.append(width - sum(widths))
-    table = _grid(data, col_widths=widths, font_size=6.5)
-    styles = []
-    for k, r in enumerate(rows, start=1):
-        styles.append(("TEXTCOLOR", (3, k), (3, k), colors.HexColor(STATUS_CSS.get(r[4], "#000000"))))
-    if styles:
-        table.setStyle(TableStyle(styles))
-    story.append(table)
-    story.append(_p("Clearance: the certified lower bound of the closest pair (negative: penetration). Margin = clearance - required. Lengths in mm, angles in degrees.", small))
+    if not motions_only:
+        story.append(PageBreak())
+        story.append(_p("Clearance table (worst first)", h2))
+        header, rows, shown, total = clearance_table_rows(result, HTML_ROW_LIMIT)
+        if shown < total:
+            story.append(_p(f"The {shown} worst of {total} rows; every row is in clearance.csv and clearance.json.", small))
+        keep = (0, 1, 2, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13)  # the note column is left to the CSV
+        data = [[header[k] for k in keep]] + [[_p(r[k], small) if k in (1, 9, 10, 13) else r[k] for k in keep] for r in rows]
+        widths = [10 * mm, 32 * mm, 20 * mm, 20 * mm, 20 * mm, 17 * mm, 17 * mm, 15 * mm, 22 * mm, 28 * mm, 15 * mm, 13 * mm]
+        widths.append(width - sum(widths))
+        table = _grid(data, col_widths=widths, font_size=6.5)
+        styles = []
+        for k, r in enumerate(rows, start=1):
+            styles.append(("TEXTCOLOR", (3, k), (3, k), colors.HexColor(STATUS_CSS.get(r[4], "#000000"))))
+        if styles:
+            table.setStyle(TableStyle(styles))
+        story.append(table)
+        story.append(_p("Clearance: the certified lower bound of the closest pair (negative: penetration). Margin = clearance - required. Lengths in mm, angles in degrees.", small))
 
-    if result.motions:
+    if motion_rows(result):
+        story += _motion_story(result, figures, (small, h2), width, height)
+    elif result.motions:
         story.append(_p("Motions", h2))
         from .tables import _jsonable
 

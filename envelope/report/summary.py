@@ -118,13 +118,21 @@ def target_count(result) -> int:
     return len({row.target for row in result.rows})
 
 
+CLEAR_TEXT = "clear"
+
+
 def verdict_text(result) -> str:
     """One line: the verdict and the count of findings."""
     verdict = result.verdict
     n = len(result.findings())
+    motions_only = not result.rows and bool(result.motions)  # ``envelope sweep``
     if verdict == "clear":
+        if motions_only:
+            return "CLEAR: every move, in every start branch, keeps its required clearance (certified over the whole move)."
         return "CLEAR: every target has a within-limits branch and every such branch keeps its required clearance."
-    return f"{verdict.upper()}: {n} finding{'s' if n != 1 else ''} (see the clearance table, worst first)."
+    moving = any(getattr(m, "status", CLEAR_TEXT) != CLEAR_TEXT for m in result.motions)
+    table = "the motions table" if motions_only else ("the clearance and motions tables" if moving else "the clearance table")
+    return f"{verdict.upper()}: {n} finding{'s' if n != 1 else ''} (see {table}, worst first)."
 
 
 def pose_summary(pose) -> dict:

@@ -122,8 +122,9 @@ def csv_text(result) -> str:
             ]
         )
     motion_rank = motion_ranks(result)
+    frames = {t.name: t.frame for t in result.cell.targets}
     for i, m in motion_rows(result):  # after the target rows, in sweep order; ``rank`` among motions
-        w.writerow(motion_csv_cells(i, m, motion_rank[i], CSV_COLUMNS))
+        w.writerow(motion_csv_cells(i, m, motion_rank[i], CSV_COLUMNS, frames.get(m.to_target, "")))
     return buf.getvalue()
 
 

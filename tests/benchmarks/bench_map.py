@@ -9,7 +9,8 @@ poses per second, poses per second per core, the share of within-limits branches
 had to send to the clearance engine, and the fraction of positions reachable and clear.
 ``--cell capsules`` uses the test cell of tests/test_mapping.py (generated capsule links) instead.
 Each measurement runs in a fresh process so that a crash of python-fcl on one grid does not stop the
-others (it is reported as a crash).
+others (it is reported as a crash). With BENCH_MAP_PROGRESS=FILE, every finished chunk appends the
+elapsed time, poses done and the running rate to FILE (a run stopped early still gives a rate).
 """
 
 from __future__ import annotations
@@ -57,8 +58,15 @@ def one(args) -> dict:
     stats = {"configs": 0, "engine": 0}
     orig = mapping.evaluate_chunk
 
+    log = os.environ.get("BENCH_MAP_PROGRESS")  # a file to append progress lines to (partial runs)
+
+    def progress(done, total, rate, eta):
+        if log:
+            with open(log, "a") as fh:
+                fh.write(f"{time.perf_counter() - t0:.1f} s: {done}/{total} poses, {rate:.1f} poses/s, eta {eta:.0f} s\n")
+
     t0 = time.perf_counter()
-    res = mapping.run_map(cell, g, method=args.method, **kw)
+    res = mapping.run_map(cell, g, method=args.method, progress=progress, **kw)
     wall = time.perf_counter() - t0
     cores = 1 if args.backend == "serial" else 2
     # the engine share, measured serially on the first chunks (cheap to repeat)
