@@ -692,14 +692,28 @@ class _Meridian:
         for k in list(self.fields):
             self.fields[k] = _edt(self.fields[k], spacing)
         self.raster_error = 0.5 * math.sqrt(2.0) * spacing
+        # Extent of all centres: beyond the fields' raster these give a tight, exact lower bound
+        # (a point at meridian radius rho is at least rho - max(rho_i) from every centre, and likewise
+        # in z), where the raster bound alone (field at the clipped edge minus the offset) is loose.
+        self.rho_max = float(rho.max())
+        self.z_min = float(z.min())
+        self.z_max = float(z.max())
 
-    def lookup(self, field_, rho, z, clamp=True):
-        """Lower bound on the meridian distance from (rho, z) to the centres of one field (clamped at 0)."""
+    def outer(self, rho, z):
+        """Lower bound on the meridian distance from (rho, z) to every centre, from their extent."""
+        return np.maximum(np.maximum(rho - self.rho_max, z - self.z_max), self.z_min - z)
+
+    def lookup(self, field_, rho, z, clamp=True, radius=0.0):
+        """Lower bound on the meridian distance from (rho, z) to the centres of one field (clamped at 0).
+
+        ``radius``: the field already has this much subtracted (the merged fields subtract class radii
+        up to the largest), so the extent bound is lowered by it too.
+        """
         nr, nz = self.shape
         ir = np.clip(np.rint(rho / self.h).astype(np.int64), 0, nr - 1)
         iz = np.clip(np.rint((z - self.z0) / self.h).astype(np.int64), 0, nz - 1)
         off = np.hypot(rho - ir * self.h, z - (self.z0 + iz * self.h))
-        out = field_[ir, iz] - off - self.raster_error
+        out = np.maximum(field_[ir, iz] - off - self.raster_error, self.outer(rho, z) - radius)
         return np.maximum(out, 0.0) if clamp else out
 
     def bin_arc(self, b, lo, hi):
@@ -773,14 +787,16 @@ def _mark_revolved(cell, inst: _Instances, q1_lo, q1_hi, pitch, allowance, merid
             pz0 = float(base[0, 2] + zc[0] * R[2, 2])
             iz = int(np.clip(np.rint((pz0 - mer.z0) / mer.h), 0, mer.shape[1] - 1))
             dz = pz0 - (mer.z0 + iz * mer.h)
-            cand = merged[col_ir, iz] - np.hypot(col_dr, dz) - mer.raster_error <= thr
+            bound = np.maximum(merged[col_ir, iz] - np.hypot(col_dr, dz) - mer.raster_error,
+                               mer.outer(col_rho, pz0) - np.float32(class_r.max()))
+            cand = bound <= thr
             idx = np.flatnonzero(cand)
             r_, ph, z_ = col_rho[idx], col_phi[idx], np.full(len(idx), pz0)
         else:
             A = (base[None, :, :] + zc[:, None, None] * R[:, 2][None, None, :]).reshape(-1, 3)
             prho = np.hypot(A[:, 0], A[:, 1])
             pz = A[:, 2]
-            cand = mer.lookup(merged, prho, pz, clamp=False) <= thr
+            cand = mer.lookup(merged, prho, pz, clamp=False, radius=float(class_r.max())) <= thr
             idx = np.flatnonzero(cand)
             r_, ph, z_ = prho[idx], np.arctan2(A[idx, 1], A[idx, 0]), pz[idx]
         if not full:

@@ -26,7 +26,7 @@ from envelope.report.figures import MOTION_CAPTIONS, motion_chart, motion_figure
 from envelope.report.motions import CHART_MOVES, MOTION_GLB, drawn_motions, worst_moves, worst_motions
 from envelope.report.tables import CSV_COLUMNS, csv_text, write_json
 from envelope.scene import STATUS_RGBA, motion_scene
-from envelope.sweep import MotionRow, Profile
+from envelope.sweep import MotionRow
 
 from test_report_support import invented_cell, invented_result, target_configurations
 
