@@ -63,7 +63,9 @@ required, clear when distance >= required; allowed pairs are always "allowed con
 Pruning
 -------
 Analytic pairs (sphere/capsule pairs, half-spaces) are always exact, vectorised over the batch. For
-the others a cheap lower bound is computed: bounding spheres, and -- unless the sphere margin is
+the others a cheap lower bound is computed: bounding spheres (against a zone box, or the outer box
+of a convex or mesh zone, the signed distance from the body's sphere centre to the box less its
+radius, when larger), and -- unless the sphere margin is
 already above max(0, T), T the smaller of the best analytic margin and the smallest upper bound from
 two interior points of a pair's solids, in that configuration -- support gaps of an outer
 shape (the primitive itself, an oriented bounding box for convex hulls and meshes) along the centre
@@ -408,6 +410,8 @@ def _outer_support(c, w, r, rho, z, u):
     h = _dot(u, cc) + r[..., None]
     for j in range(3):
         h = h + np.abs(_dot(u, w[..., None, j, :]))
+    if not rho.any():  # no cylinder among the shapes: the term is zero
+        return h
     uz = _dot(u, zz)
     return h + rho[..., None] * np.sqrt(np.maximum(1.0 - uz * uz, 0.0))
 
@@ -451,7 +455,7 @@ def _closest_local(shape, p):
         else:
             d = shape.p1 - shape.p0
             dd = float(d @ d)
-            s = np.zeros(p.shape[:-1]) if dd == 0 else np.clip(_dot(p - shape.p0, d) / dd, 0.0, 1.0)
+            s = np.zeros(p.shape[:-1]) if dd == 0 else np.minimum(np.maximum(_dot(p - shape.p0, d) / dd, 0.0), 1.0)
             c = shape.p0 + s[..., None] * d
         v = p - c
         n = np.sqrt(_dot(v, v))
@@ -461,9 +465,9 @@ def _closest_local(shape, p):
     local = _rows_times(p - tb, Rb)
     if isinstance(shape, g.Box):
         h = 0.5 * shape.extents
-        local = np.clip(local, -h, h)
+        local = np.minimum(np.maximum(local, -h), h)  # (np.clip, without its call overhead)
     elif isinstance(shape, g.Cylinder):
-        z = np.clip(local[..., 2], -0.5 * shape.length, 0.5 * shape.length)
+        z = np.minimum(np.maximum(local[..., 2], -0.5 * shape.length), 0.5 * shape.length)
         rad = np.hypot(local[..., 0], local[..., 1])
         scale = np.where(rad > shape.radius, shape.radius / np.where(rad > 0, rad, 1.0), 1.0)
         local = np.stack([local[..., 0] * scale, local[..., 1] * scale, z], axis=-1)
@@ -613,6 +617,30 @@ class ClearanceEngine:
         self._S_interior = np.array([s.interior for s in slots]).reshape(len(slots), 3)
         self._S_frame = np.array([max(s.frame, 0) for s in slots], dtype=np.int64)
         self._S_moving = np.array([s.body >= 0 for s in slots], dtype=bool)
+        # zone shapes inside a box (a box zone; the outer box of a convex or mesh zone) among the cheap
+        # shape pairs, for the centre-to-box bound: (row in _sp_cheap, world_from_box R, t, half extents)
+        rows, box_R, box_t, box_h = [], [], [], []
+        for j, mm in enumerate(self._sp_cheap.tolist()):
+            zs = slots[sp_b[mm]]
+            if zs.body >= 0:
+                continue
+            if isinstance(zs.shape, g.Box):
+                Rz, tz, hz = zs.shape.pose[:3, :3], zs.shape.pose[:3, 3], 0.5 * zs.shape.extents
+            elif isinstance(zs.shape, (g.Convex, g.TriMesh)) and zs.r == 0.0 and zs.rho == 0.0:
+                hz = np.linalg.norm(zs.outer[1], axis=1)  # outer box: centre c, rows w_j = h_j * axis_j
+                if not (hz > 0).all():
+                    continue
+                Rz, tz = (zs.outer[1] / hz[:, None]).T, zs.outer[0]
+            else:
+                continue
+            rows.append(j)
+            box_R.append(Rz)
+            box_t.append(tz)
+            box_h.append(hz)
+        self._cheap_box_rows = np.array(rows, dtype=np.int64)
+        self._box_R = np.array(box_R, dtype=np.float64).reshape(-1, 3, 3)
+        self._box_t = np.array(box_t, dtype=np.float64).reshape(-1, 3)
+        self._box_h = np.array(box_h, dtype=np.float64).reshape(-1, 3)
 
     # ------------------------------------------------------------------------------- posing
     def _q(self, q):
@@ -654,7 +682,7 @@ class ClearanceEngine:
         q = self._q(q)
         q2 = np.atleast_2d(q)
         parts = [self._evaluate_block(q2[i:i + _BLOCK]) for i in range(0, len(q2), _BLOCK)]
-        res = ClearanceResult.concatenate(parts) if parts else self._evaluate_block(q2)
+        res = (parts[0] if len(parts) == 1 else ClearanceResult.concatenate(parts)) if parts else self._evaluate_block(q2)
         return res._index(0) if q.ndim == 1 else res
 
     def evaluate_parallel(self, q, *, processes: int = 2, chunk_size: int | None = None) -> ClearanceResult:
@@ -701,9 +729,15 @@ class ClearanceEngine:
             Ra, ta = R[:, sa], t[:, sa]
             nrm = b.shape.normal
             local = -np.einsum("nij,i->nj", Ra, nrm)  # R^T (-n)
-            h = -(ta @ nrm) + g.support(a.shape, local)
+            if isinstance(a.shape, (g.Convex, g.TriMesh)):  # support value and point from one product
+                dots = local @ a.shape.vertices.T
+                best_v = np.argmax(dots, axis=1)
+                h_local, p_local = dots[np.arange(len(dots)), best_v], a.shape.vertices[best_v]
+            else:
+                h_local, p_local = g.support(a.shape, local), g.support_point(a.shape, local)
+            h = -(ta @ nrm) + h_local
             val = -h - b.shape.offset
-            pt = np.einsum("nij,nj->ni", Ra, g.support_point(a.shape, local)) + ta
+            pt = np.einsum("nij,nj->ni", Ra, p_local) + ta
             exact_sp[:, mm] = upper_sp[:, mm] = val
             wb_sp[:, mm] = pt
             wo_sp[:, mm] = pt - val[:, None] * nrm
@@ -738,6 +772,19 @@ class ClearanceEngine:
             a, b = self._sp_a[m], self._sp_b[m]
             d = ctr[:, b] - ctr[:, a]
             sphere = np.sqrt(_dot(d, d)) - self._S_radius[a] - self._S_radius[b]
+            jb = self._cheap_box_rows
+            if jb.size:
+                # a body's bounding sphere against a zone box (or the outer box of a zone): the distance
+                # from its centre to the box, less its radius (a box's bounding sphere is a poor bound
+                # for a long panel)
+                # (signed: a centre inside the box gives minus its depth below the nearest face, the
+                # penetration depth of the ball, which is at least that of the body it contains)
+                local = _rows_times(ctr[:, a[jb]] - self._box_t, self._box_R)
+                out = local - np.clip(local, -self._box_h, self._box_h)
+                below = self._box_h - np.abs(local)
+                inside = np.minimum(np.minimum(below[..., 0], below[..., 1]), below[..., 2])
+                sd = np.where(inside >= 0.0, -inside, np.sqrt(_dot(out, out)))
+                sphere[:, jb] = np.maximum(sphere[:, jb], sd - self._S_radius[a[jb]])
             cheap_sp[:, m] = sphere
             pm = self._sp_pair[m]
         posed = (ctr, oc, ow, zax, axes)
