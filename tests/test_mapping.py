@@ -120,6 +120,7 @@ REGION = [[113, 813], [-287, 413], [313, 713]]
 STEP = 100
 ORIENTATIONS = [[180, 0, 0], [0, 90, 0]]
 CHUNK = 64
+METHOD = "fast"  # the backends and resume tests run the fast method (the engine-only one is simpler)
 
 
 @pytest.fixture(scope="module")
@@ -136,7 +137,7 @@ def grid(cell):
 
 @pytest.fixture(scope="module")
 def serial(cell, grid):
-    return M.run_map(cell, grid, chunk_size=CHUNK)
+    return M.run_map(cell, grid, chunk_size=CHUNK, method=METHOD)
 
 
 @pytest.fixture(scope="module")
@@ -209,21 +210,22 @@ def test_grid_points_match_run_check(cell, grid, exact, serial):
 
 
 # ---------------------------------------------------------------------------- backends
-def test_process_pool_identical(cell, grid, serial):
-    pooled = M.run_map(cell, grid, jobs=2, chunk_size=CHUNK)
+def test_process_pool_identical(cell, grid, serial, exact):
+    pooled = M.run_map(cell, grid, jobs=2, chunk_size=CHUNK, method=METHOD)
     assert pooled.backend == "processes-2"
     _same(serial, pooled)
+    _same(exact, M.run_map(cell, grid, jobs=2, chunk_size=CHUNK, method="exact"))
 
 
 def test_dask_local_cluster_identical(cell, grid, serial):
     pytest.importorskip("distributed")
-    dasked = M.run_map(cell, grid, jobs=2, dask="local", chunk_size=CHUNK)
+    dasked = M.run_map(cell, grid, jobs=2, dask="local", chunk_size=CHUNK, method=METHOD)
     assert dasked.backend == "dask-local"
     _same(serial, dasked)
 
 
 def test_chunk_size_does_not_change_results(cell, grid, serial):
-    other = M.run_map(cell, grid, chunk_size=37)
+    other = M.run_map(cell, grid, chunk_size=37, method=METHOD)
     for name in ("n_solutions", "n_within", "n_clear"):
         np.testing.assert_array_equal(getattr(serial, name), getattr(other, name))
     np.testing.assert_allclose(serial.best_margin, other.best_margin, atol=1e-9, equal_nan=True)
@@ -244,34 +246,34 @@ def test_resume_after_interruption(cell, grid, serial, tmp_path):
             raise _Stop
 
     with pytest.raises(_Stop):
-        M.run_map(cell, grid, chunk_size=CHUNK, chunk_dir=tmp_path, progress=stop_after_three)
+        M.run_map(cell, grid, chunk_size=CHUNK, method=METHOD, chunk_dir=tmp_path, progress=stop_after_three)
     files = sorted(tmp_path.glob("chunk-*.npz"))
     assert len(files) == 3 and not list(tmp_path.glob(".*tmp"))
     assert [c[0] for c in calls] == [CHUNK, 2 * CHUNK, 3 * CHUNK] and all(c[1] == grid.size for c in calls)
     assert all(c[2] > 0 and c[3] >= 0 for c in calls)
 
-    resumed = M.run_map(cell, grid, chunk_size=CHUNK, chunk_dir=tmp_path)
+    resumed = M.run_map(cell, grid, chunk_size=CHUNK, method=METHOD, chunk_dir=tmp_path)
     assert (resumed.chunks_reused, resumed.chunks_computed) == (3, n_chunks - 3)
     _same(serial, resumed)
 
     # a removed chunk is computed again, and only that one
     (tmp_path / "chunk-000002.npz").unlink()
-    again = M.run_map(cell, grid, chunk_size=CHUNK, chunk_dir=tmp_path)
+    again = M.run_map(cell, grid, chunk_size=CHUNK, method=METHOD, chunk_dir=tmp_path)
     assert (again.chunks_reused, again.chunks_computed) == (n_chunks - 1, 1)
     _same(serial, again)
 
 
 def test_chunks_of_another_grid_are_not_reused(cell, grid, tmp_path):
     small = M.make_grid(cell, REGION, STEP, ORIENTATIONS[:1])
-    M.run_map(cell, small, chunk_size=CHUNK, chunk_dir=tmp_path)
-    other = M.run_map(cell, grid, chunk_size=CHUNK, chunk_dir=tmp_path)
+    M.run_map(cell, small, chunk_size=CHUNK, method=METHOD, chunk_dir=tmp_path)
+    other = M.run_map(cell, grid, chunk_size=CHUNK, method=METHOD, chunk_dir=tmp_path)
     assert other.chunks_reused == 0
     moved = dataclasses.replace(cell, world_from_base=cell.world_from_base @ np.diag([1.0, 1.0, 1.0, 1.0]))
-    same = M.run_map(moved, grid, chunk_size=CHUNK, chunk_dir=tmp_path)
+    same = M.run_map(moved, grid, chunk_size=CHUNK, method=METHOD, chunk_dir=tmp_path)
     assert same.chunks_computed == 0  # the same geometry (another Cell object): every chunk reused
     lifted = np.array(cell.world_from_base)
     lifted[2, 3] += 0.01
-    changed = M.run_map(dataclasses.replace(cell, world_from_base=lifted), grid, chunk_size=CHUNK,
+    changed = M.run_map(dataclasses.replace(cell, world_from_base=lifted), grid, chunk_size=CHUNK, method=METHOD,
                         chunk_dir=tmp_path)
     assert changed.chunks_reused == 0
 

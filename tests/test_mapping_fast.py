@@ -151,3 +151,20 @@ def test_gjk_distance_against_scipy():
         assert ok[0]
         assert lo[0, 0] - 1e-6 <= d + M.ENGINE_EPS and d <= hi[0, 0] + 1e-9
         assert hi[0, 0] - d < 2e-6
+
+
+def test_fast_map_equals_exact_map_on_a_grid(cells):
+    """A whole map (capsule cell, tool down, grid reaching the floor) with both methods: same counts,
+    same -inf places, best margin within 1 mm (regression: a floor penetration as the best branch)."""
+    cell = cells["capsules"]
+    g = M.make_grid(cell, [[-587, 1413], [-993, 1007], [13, 2013]], 2000 / 13, [[180, 0, 0]])
+    fast = M.run_map(cell, g, method="fast")
+    exact = M.run_map(cell, g, method="exact")
+    for name in ("n_solutions", "n_within", "n_clear"):
+        np.testing.assert_array_equal(getattr(fast, name), getattr(exact, name))
+    f, e = fast.best_margin, exact.best_margin
+    np.testing.assert_array_equal(np.isnan(f), np.isnan(e))
+    np.testing.assert_array_equal(np.isneginf(f), np.isneginf(e))
+    fin = np.isfinite(e)
+    assert (e[fin] < 0).any() and (e[fin] > 0).any()
+    assert (f[fin] - e[fin]).min() >= -1e-3 and (f[fin] - e[fin]).max() <= 1e-3
