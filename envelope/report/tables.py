@@ -22,6 +22,7 @@ from .summary import (
     all_warnings,
     cell_summary,
     fmt,
+    fmt_list,
     rnd,
     rnd_list,
     singular_names,
@@ -82,6 +83,148 @@ def ranks(result) -> list:
     return out
 
 
+# ---------------------------------------------------------------------- bulk conversion
+
+BULK_ROWS = 2048
+"""Rows converted together by the table writers: bounds their memory (the bytes do not depend on it)."""
+
+
+def row_chunks(rows, size: int = BULK_ROWS):
+    """``(start, rows[start:start + size])`` over ``rows``, in order."""
+    for start in range(0, len(rows), size):
+        yield start, rows[start:start + size]
+
+
+@dataclass(frozen=True, eq=False)
+class RowColumns:
+    """The numbers of n target rows in file units, each converted for all rows in one numpy call.
+
+    ``q_deg``, ``limit_excess_deg`` : (n, 6); ``clearance_mm``, ``required_mm``, ``margin_mm`` : (n,);
+    ``witness_body_mm``, ``witness_other_mm`` : (n, 3); ``limit_joint`` : (n,) int and
+    ``limit_worst_deg`` : (n,) float are ``summary.worst_limit`` of each row.
+    """
+
+    q_deg: np.ndarray
+    limit_excess_deg: np.ndarray
+    clearance_mm: np.ndarray
+    required_mm: np.ndarray
+    margin_mm: np.ndarray
+    witness_body_mm: np.ndarray
+    witness_other_mm: np.ndarray
+    limit_joint: np.ndarray
+    limit_worst_deg: np.ndarray
+
+
+def _stack(rows, name: str) -> np.ndarray:
+    return np.stack([np.asarray(getattr(r, name), dtype=np.float64) for r in rows])
+
+
+def worst_limits(excess) -> tuple:
+    """``(joint, excess_deg)``, each (n,): ``summary.worst_limit`` of every row of ``excess`` (n, m) rad.
+
+    The joint is 1-based, 0 (with excess 0) where no joint is beyond its range; like ``np.nanargmax``
+    the first of equal largest excesses counts, NaN entries are ignored.
+    """
+    excess = np.asarray(excess, dtype=np.float64)
+    masked = np.where(np.isnan(excess), -np.inf, excess)
+    j = masked.argmax(axis=1)
+    top = masked[np.arange(len(masked)), j]
+    beyond = np.isfinite(excess).any(axis=1) & (top > 0)
+    return np.where(beyond, j + 1, 0), np.where(beyond, to_degrees(top), 0.0)
+
+
+def row_columns(rows) -> RowColumns | None:
+    """The ``RowColumns`` of ``rows``; None when there are none or their arrays do not stack (rows
+    of differing shapes), for the caller to convert row by row."""
+    try:
+        q, excess = _stack(rows, "q"), _stack(rows, "limit_excess")
+        wb, wo = _stack(rows, "witness_body"), _stack(rows, "witness_other")
+        scalars = [np.array([float(getattr(r, a)) for r in rows]) for a in ("clearance", "required", "margin")]
+    except (ValueError, TypeError):
+        return None
+    if any(a.ndim != 2 for a in (q, excess, wb, wo)) or excess.shape[1] == 0 or wb.shape != wo.shape:
+        return None
+    joint, worst_deg = worst_limits(excess)
+    return RowColumns(
+        q_deg=to_degrees(q),
+        limit_excess_deg=to_degrees(excess),
+        clearance_mm=to_mm(scalars[0]),
+        required_mm=to_mm(scalars[1]),
+        margin_mm=to_mm(scalars[2]),
+        witness_body_mm=to_mm(wb),
+        witness_other_mm=to_mm(wo),
+        limit_joint=joint,
+        limit_worst_deg=worst_deg,
+    )
+
+
+# ---------------------------------------------------------------------- CSV
+
+
+def csv_target_cells(i, row, rank: int) -> list:
+    """One clearance.csv row of target row ``row`` (index ``i``), converted on its own.
+
+    The reference for ``csv_target_rows``, which converts many rows at once to the same text.
+    """
+    q_deg = to_degrees(row.q)
+    joint, excess = worst_limit(row)
+    wb = to_mm(row.witness_body)
+    wo = to_mm(row.witness_other)
+    return [
+        i,
+        rank,
+        row.target,
+        row.target_frame,
+        row.branch,
+        row.turn,
+        row.twin_of,
+        row.status,
+        row.clearance_status,
+        *(fmt(v) for v in q_deg),
+        joint or "",
+        fmt(excess) if joint else "",
+        ";".join(singular_names(row)),
+        fmt(to_mm(row.clearance)),
+        fmt(to_mm(row.required)),
+        fmt(to_mm(row.margin)),
+        row.closest_body,
+        row.closest_other,
+        *(fmt(v) for v in wb),
+        *(fmt(v) for v in wo),
+        row.note,
+        "target",
+        *([""] * (len(CSV_MOTION_COLUMNS) - 1)),
+    ]
+
+
+def csv_target_rows(rows, start: int, rank) -> list:
+    """The clearance.csv rows of ``rows`` (``result.rows[start:start + len(rows)]``; ``rank`` of all
+    rows), the same cells as ``csv_target_cells`` row by row, with the numbers converted and formatted
+    for all rows at once (``row_columns``)."""
+    cols = row_columns(rows)
+    if cols is None:
+        return [csv_target_cells(start + k, row, rank[start + k]) for k, row in enumerate(rows)]
+    nq, nw = cols.q_deg.shape[1], cols.witness_body_mm.shape[1]
+    q = fmt_list(cols.q_deg)
+    excess = fmt_list(cols.limit_worst_deg)
+    clearance, required, margin = (fmt_list(a) for a in (cols.clearance_mm, cols.required_mm, cols.margin_mm))
+    wb, wo = fmt_list(cols.witness_body_mm), fmt_list(cols.witness_other_mm)
+    joints = cols.limit_joint.tolist()
+    tail = ["target", *([""] * (len(CSV_MOTION_COLUMNS) - 1))]
+    out = []
+    for k, row in enumerate(rows):
+        i, joint = start + k, joints[k]
+        out.append(
+            [
+                i, rank[i], row.target, row.target_frame, row.branch, row.turn, row.twin_of, row.status,
+                row.clearance_status, *q[k * nq:(k + 1) * nq], joint or "", excess[k] if joint else "",
+                ";".join(singular_names(row)), clearance[k], required[k], margin[k], row.closest_body,
+                row.closest_other, *wb[k * nw:(k + 1) * nw], *wo[k * nw:(k + 1) * nw], row.note, *tail,
+            ]
+        )
+    return out
+
+
 def csv_text(result) -> str:
     """clearance.csv as text: one row per target x branch, in ``result.rows`` order, then one row per
     motion (``envelope.sweep.MotionRow``), in ``result.motions`` order."""
@@ -89,38 +232,8 @@ def csv_text(result) -> str:
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(CSV_COLUMNS)
     rank = ranks(result)
-    for i, row in enumerate(result.rows):
-        q_deg = to_degrees(row.q)
-        joint, excess = worst_limit(row)
-        wb = to_mm(row.witness_body)
-        wo = to_mm(row.witness_other)
-        w.writerow(
-            [
-                i,
-                rank[i],
-                row.target,
-                row.target_frame,
-                row.branch,
-                row.turn,
-                row.twin_of,
-                row.status,
-                row.clearance_status,
-                *(fmt(v) for v in q_deg),
-                joint or "",
-                fmt(excess) if joint else "",
-                ";".join(singular_names(row)),
-                fmt(to_mm(row.clearance)),
-                fmt(to_mm(row.required)),
-                fmt(to_mm(row.margin)),
-                row.closest_body,
-                row.closest_other,
-                *(fmt(v) for v in wb),
-                *(fmt(v) for v in wo),
-                row.note,
-                "target",
-                *([""] * (len(CSV_MOTION_COLUMNS) - 1)),
-            ]
-        )
+    for start, chunk in row_chunks(result.rows):
+        w.writerows(csv_target_rows(chunk, start, rank))
     motion_rank = motion_ranks(result)
     frames = {t.name: t.frame for t in result.cell.targets}
     for i, m in motion_rows(result):  # after the target rows, in sweep order; ``rank`` among motions
@@ -157,6 +270,28 @@ class PairTable:
     shared: bool = False  # ``keys`` is the cached list of definitions shared by many rows
 
 
+def lazy_pairs(row):
+    """``(defs, result, zone_kinds)`` of a row whose pairs are a lazy sequence from ``run_check``
+    (``check.PairRows``: definitions, one ``ClearanceResult``, zone kinds), else None."""
+    pairs = row.pairs
+    defs, res, zone_kinds = (getattr(pairs, a, None) for a in ("defs", "result", "zone_kinds"))
+    if defs is not None and zone_kinds is not None and hasattr(res, "distance") and hasattr(res, "status"):
+        return defs, res, zone_kinds
+    return None
+
+
+def shared_keys(defs, zone_kinds, cache: dict) -> list:
+    """The definition keys (``PairTable.keys``) of shared pair definitions ``defs``, kept in ``cache``."""
+    hit = cache.get(id(defs))
+    if hit is None or hit[0] is not defs:
+        keys = [
+            (p.body, p.other, p.kind, zone_kinds.get(p.zone, "") if p.kind == "zone" else "", p.panel, float(p.required))
+            for p in defs
+        ]
+        hit = cache[id(defs)] = (defs, keys)
+    return hit[1]
+
+
 def pair_table(row, cache: dict | None = None) -> PairTable:
     """The pairs of ``row`` as a ``PairTable``.
 
@@ -164,22 +299,14 @@ def pair_table(row, cache: dict | None = None) -> PairTable:
     straight from its arrays, without building a ``PairRow`` per pair; any other sequence of
     ``PairRow`` is read pair by pair. ``cache`` keeps the definition keys of shared ``defs``.
     """
-    pairs = row.pairs
-    defs, res, zone_kinds = (getattr(pairs, a, None) for a in ("defs", "result", "zone_kinds"))
-    if defs is not None and zone_kinds is not None and hasattr(res, "distance") and hasattr(res, "status"):
+    lazy = lazy_pairs(row)
+    if lazy is not None:
         from ..clearance import STATUS_NAMES
 
-        cache = {} if cache is None else cache
-        hit = cache.get(id(defs))
-        if hit is None or hit[0] is not defs:
-            keys = [
-                (p.body, p.other, p.kind, zone_kinds.get(p.zone, "") if p.kind == "zone" else "", p.panel, float(p.required))
-                for p in defs
-            ]
-            hit = cache[id(defs)] = (defs, keys)
+        defs, res, zone_kinds = lazy
         names = np.array(STATUS_NAMES, dtype=object)
         return PairTable(
-            keys=hit[1],
+            keys=shared_keys(defs, zone_kinds, {} if cache is None else cache),
             distance=np.asarray(res.distance, dtype=np.float64).reshape(-1),
             distance_upper=np.asarray(res.distance_upper, dtype=np.float64).reshape(-1),
             depth_known=np.asarray(res.depth_known, dtype=bool).reshape(-1),
@@ -189,7 +316,7 @@ def pair_table(row, cache: dict | None = None) -> PairTable:
             witness_other=np.asarray(res.witness_other, dtype=np.float64).reshape(-1, 3),
             shared=True,
         )
-    items = list(pairs)
+    items = list(row.pairs)
     return PairTable(
         keys=[_pair_key(p) for p in items],
         distance=np.array([p.distance for p in items], dtype=np.float64),
@@ -208,18 +335,29 @@ def pair_definitions(result, cache: dict | None = None, statuses: list | None = 
     Every pair status met that ``statuses`` (a list) lacks is appended to it.
     """
     defs, index = [], {}
+    cache = {} if cache is None else cache
     seen_shared: dict = {}  # id -> the shared key list itself (held, so the id stays unique)
+    pending: list = []  # status code arrays of lazy rows not yet added to ``statuses``
     for row in result.rows:
-        table = pair_table(row, cache)
-        if statuses is not None:
-            for st in dict.fromkeys(table.status):
-                if st not in statuses:
-                    statuses.append(st)
-        if table.shared:
-            if seen_shared.get(id(table.keys)) is table.keys:
+        lazy = lazy_pairs(row)
+        if lazy is not None:
+            keys = shared_keys(lazy[0], lazy[2], cache)
+            pending.append(np.asarray(lazy[1].status, dtype=np.int64).reshape(-1))
+            if len(pending) >= BULK_ROWS:
+                _add_statuses(statuses, pending)
+        else:
+            _add_statuses(statuses, pending)  # keep first-seen order across both kinds of rows
+            table = pair_table(row, cache)
+            if statuses is not None:
+                for st in dict.fromkeys(table.status):
+                    if st not in statuses:
+                        statuses.append(st)
+            keys = table.keys
+        if lazy is not None:
+            if seen_shared.get(id(keys)) is keys:
                 continue  # the same shared definitions as an earlier row
-            seen_shared[id(table.keys)] = table.keys
-        for key in table.keys:
+            seen_shared[id(keys)] = keys
+        for key in keys:
             if key not in index:
                 index[key] = len(defs)
                 body, other, kind, zone_kind, panel, required = key
@@ -233,12 +371,42 @@ def pair_definitions(result, cache: dict | None = None, statuses: list | None = 
                         "required_mm": rnd(to_mm(required)),
                     }
                 )
+    _add_statuses(statuses, pending)
     return defs, index
+
+
+def _add_statuses(statuses: list | None, pending: list) -> None:
+    """Append to ``statuses`` the status names of the codes in ``pending`` (arrays, emptied) that it
+    lacks, in first-seen order, as reading them one by one would."""
+    if pending and statuses is not None:
+        from ..clearance import STATUS_NAMES
+
+        codes, first = np.unique(np.concatenate(pending), return_index=True)
+        for code in codes[np.argsort(first)].tolist():
+            name = STATUS_NAMES[code]
+            if name not in statuses:
+                statuses.append(name)
+    pending.clear()
 
 
 WITNESSES = ("findings", "all")
 """Which pairs' witness points clearance.json holds: ``findings`` (every pair that is not ``clear``,
 the default, keeping big checks compact) or ``all`` (every pair that was not pruned)."""
+
+
+def pair_positions(keys, shared: bool, index: dict, n_defs: int, cache: dict):
+    """The ``pair`` entry of a row's pairs: the position of each key in the definitions ``index``,
+    or None when the row holds every defined pair in definition order (the usual case: saves an
+    array). Kept in ``cache`` for a ``shared`` key list."""
+    where_cache = cache.setdefault("where", {})  # only for shared key lists, which it holds
+    hit = where_cache.get(id(keys)) if shared else None
+    if hit is None or hit[0] is not keys:
+        where = [index[key] for key in keys]
+        pair = None if len(where) == n_defs and where == list(range(n_defs)) else where
+        hit = (keys, pair)
+        if shared:
+            where_cache[id(keys)] = hit
+    return hit[1]
 
 
 def _row_pairs(row, index: dict, status_codes: list, n_defs: int, witnesses: str, cache: dict) -> dict:
@@ -247,20 +415,11 @@ def _row_pairs(row, index: dict, status_codes: list, n_defs: int, witnesses: str
         if s not in status_codes:
             status_codes.append(s)
     code_of = {s: k for k, s in enumerate(status_codes)}
-    where_cache = cache.setdefault("where", {})  # only for shared key lists, which it holds
-    hit = where_cache.get(id(t.keys)) if t.shared else None
-    if hit is None or hit[0] is not t.keys:
-        where = [index[key] for key in t.keys]
-        # null: the row holds every defined pair, in definition order (the usual case: saves an array)
-        pair = None if len(where) == n_defs and where == list(range(n_defs)) else where
-        hit = (t.keys, pair)
-        if t.shared:
-            where_cache[id(t.keys)] = hit
     status = np.array(t.status, dtype=object)
     keep_mask = ~t.pruned if witnesses == "all" else (~t.pruned & (status != "clear"))
     keep = np.flatnonzero(keep_mask)
     return {
-        "pair": hit[1],
+        "pair": pair_positions(t.keys, t.shared, index, n_defs, cache),
         "distance_mm": rnd_list(to_mm(t.distance)),
         "distance_upper_mm": rnd_list(to_mm(t.distance_upper)),
         "depth_known": t.depth_known.astype(np.int8).tolist(),
@@ -300,6 +459,145 @@ def row_record(i, row, rank, index, status_codes, n_defs, witnesses="findings", 
     }
     rec["pairs"] = _row_pairs(row, index, status_codes, n_defs, witnesses, {} if cache is None else cache)
     return rec
+
+
+ENCODE = json.JSONEncoder(sort_keys=True, separators=(",", ":"), allow_nan=False).encode
+"""One compact clearance.json line: ``json.dumps(value, sort_keys=True, separators=(",", ":"),
+allow_nan=False)``, with the encoder built once."""
+
+_RESULT_FIELDS = ("distance", "distance_upper", "depth_known", "pruned", "status", "witness_body", "witness_other")
+
+
+def _memory_key(res) -> tuple:
+    """Equal for two ``ClearanceResult`` whose pair arrays are the same memory (a turn variant and its
+    twin are views of one configuration's results), so their pairs entry is the same text."""
+    out = []
+    for name in _RESULT_FIELDS:
+        a = np.asarray(getattr(res, name))
+        out.append((a.__array_interface__["data"][0], a.shape, a.strides, a.dtype.str))
+    return tuple(out)
+
+
+def _pairs_entries(results, index, status_codes, n_defs, witnesses, cache, defs, zone_kinds) -> list:
+    """The pairs entries (``_row_pairs``) of ``results`` (ClearanceResult of one configuration each,
+    all over the pair definitions ``defs``) as dicts, the arrays converted for all at once."""
+    from ..clearance import STATUS_NAMES
+
+    def stacked(name, dtype, shape):
+        return np.stack([np.asarray(getattr(r, name), dtype=dtype).reshape(shape) for r in results])
+
+    status = stacked("status", np.int64, -1)
+    _add_statuses(status_codes, [status.ravel()])
+    code_of = {s: k for k, s in enumerate(status_codes)}
+    codes = np.array([code_of.get(s, -1) for s in STATUS_NAMES], dtype=np.int64)[status]
+    clear = np.array([s == "clear" for s in STATUS_NAMES], dtype=bool)[status]
+    pruned = stacked("pruned", bool, -1)
+    keep = ~pruned if witnesses == "all" else (~pruned & ~clear)
+    who, which = np.nonzero(keep)  # row-major: each result's kept pairs together, in pair order
+    bounds = np.concatenate([[0], np.cumsum(np.bincount(who, minlength=len(results)))]).tolist()
+    witness_body = rnd_list(to_mm(stacked("witness_body", np.float64, (-1, 3))[who, which]))
+    witness_other = rnd_list(to_mm(stacked("witness_other", np.float64, (-1, 3))[who, which]))
+    columns = {
+        "distance_mm": rnd_list(to_mm(stacked("distance", np.float64, -1))),
+        "distance_upper_mm": rnd_list(to_mm(stacked("distance_upper", np.float64, -1))),
+        "depth_known": stacked("depth_known", bool, -1).astype(np.int8).tolist(),
+        "pruned": pruned.astype(np.int8).tolist(),
+        "status": codes.tolist(),
+    }
+    pair = pair_positions(shared_keys(defs, zone_kinds, cache), True, index, n_defs, cache)
+    which = which.tolist()
+    out = []
+    for u in range(len(results)):
+        a, b = bounds[u], bounds[u + 1]
+        entry = {"pair": pair, **{k: v[u] for k, v in columns.items()}}
+        entry.update(witness=which[a:b], witness_body_mm=witness_body[a:b], witness_other_mm=witness_other[a:b])
+        out.append(entry)
+    return out
+
+
+def pairs_texts(rows, index, status_codes, n_defs, witnesses, cache) -> list:
+    """``ENCODE`` of each row's pairs entry (as ``_row_pairs`` makes it), or None for a row whose pairs
+    are not a lazy ``run_check`` sequence (or do not stack): those go pair by pair.
+
+    Rows whose results are the same memory (turn variants and their twins) are encoded once.
+    """
+    texts = [None] * len(rows)
+    groups: dict = {}  # id(defs) -> (defs, zone_kinds, {memory key: [result, row positions]})
+    for k, row in enumerate(rows):
+        lazy = lazy_pairs(row)
+        if lazy is None:
+            continue
+        defs, res, zone_kinds = lazy
+        group = groups.setdefault(id(defs), (defs, zone_kinds, {}))[2]
+        group.setdefault(_memory_key(res), [res, []])[1].append(k)
+    for defs, zone_kinds, group in groups.values():
+        members = list(group.values())
+        try:
+            entries = _pairs_entries([m[0] for m in members], index, status_codes, n_defs, witnesses, cache, defs, zone_kinds)
+        except ValueError:  # results of differing sizes
+            continue
+        for (_, where), entry in zip(members, entries):
+            text = ENCODE(entry)
+            for k in where:
+                texts[k] = text
+    return texts
+
+
+def _splice(record: dict, key: str, text: str) -> str:
+    """``ENCODE(record)`` with ``key`` added, whose value's ``ENCODE`` is ``text`` (not encoded again)."""
+    low = ENCODE({k: v for k, v in record.items() if k < key})[1:-1]
+    high = ENCODE({k: v for k, v in record.items() if k > key})[1:-1]
+    return "{" + ",".join(part for part in (low, json.dumps(key) + ":" + text, high) if part) + "}"
+
+
+def json_row_lines(rows, start, rank, index, status_codes, n_defs, witnesses="findings", cache=None) -> list:
+    """The clearance.json lines of ``rows`` (``result.rows[start:start + len(rows)]``; ``rank`` of all
+    rows): ``ENCODE(row_record(...))`` of each, with the numbers converted for all rows at once
+    (``row_columns``, ``pairs_texts``)."""
+    cache = {} if cache is None else cache
+    cols = row_columns(rows)
+    if cols is None:
+        return [
+            ENCODE(row_record(start + k, row, rank[start + k], index, status_codes, n_defs, witnesses, cache))
+            for k, row in enumerate(rows)
+        ]
+    texts = pairs_texts(rows, index, status_codes, n_defs, witnesses, cache)
+    q, excess = rnd_list(cols.q_deg), rnd_list(cols.limit_excess_deg)
+    wb, wo = rnd_list(cols.witness_body_mm), rnd_list(cols.witness_other_mm)
+    clearance, required, margin = ([rnd(v) for v in a.tolist()] for a in (cols.clearance_mm, cols.required_mm, cols.margin_mm))
+    joints = cols.limit_joint.tolist()
+    out = []
+    for k, row in enumerate(rows):
+        i = start + k
+        rec = {
+            "row": i,
+            "rank": rank[i],
+            "target": row.target,
+            "frame": row.target_frame,
+            "branch": row.branch,
+            "turn": int(row.turn),
+            "twin_of": int(row.twin_of),
+            "status": row.status,
+            "clearance_status": row.clearance_status,
+            "q_deg": q[k],
+            "limit_excess_deg": excess[k],
+            "limit_joint": joints[k],
+            "singular": singular_names(row),
+            "clearance_mm": clearance[k],
+            "required_mm": required[k],
+            "margin_mm": margin[k],
+            "closest_body": row.closest_body,
+            "closest_other": row.closest_other,
+            "witness_body_mm": wb[k],
+            "witness_other_mm": wo[k],
+            "note": row.note,
+        }
+        if texts[k] is None:
+            rec["pairs"] = _row_pairs(row, index, status_codes, n_defs, witnesses, cache)
+            out.append(ENCODE(rec))
+        else:
+            out.append(_splice(rec, "pairs", texts[k]))
+    return out
 
 
 def _jsonable(value):
@@ -385,10 +683,10 @@ def write_json(result, path, *, witnesses: str = "findings"):
     with AtomicWriter(path) as out:  # rows are streamed: a big check is never held as one string
         out.write(before)
         out.write("[\n" if n else "[]")
-        for i, row in enumerate(result.rows):
-            rec = row_record(i, row, rank[i], index, status_codes, len(defs), witnesses, cache)
-            out.write(json.dumps(rec, sort_keys=True, separators=(",", ":"), allow_nan=False))
-            out.write(",\n" if i + 1 < n else "\n]")
+        for start, chunk in row_chunks(result.rows):
+            lines = json_row_lines(chunk, start, rank, index, status_codes, len(defs), witnesses, cache)
+            out.write(",\n".join(lines))
+            out.write(",\n" if start + len(chunk) < n else "\n]")
         out.write(after)
         out.write("\n")
     return path
