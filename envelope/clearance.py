@@ -216,6 +216,45 @@ class ClearanceResult:
     _index = take
 
 
+
+CONTACT_PUSH = 1e-5
+"""m: in contact, the second object is moved this far towards the first before python-fcl's signed
+distance is asked for, and the answer lowered by as much (see ``_fcl_distance``)."""
+
+
+def _fcl_distance(oa, ob, mesh_pair: bool):
+    """python-fcl distance and witness points ``(d, (p_a, p_b))`` of two posed objects, without crashing.
+
+    python-fcl 0.7's signed distance can crash the process: a segmentation fault for a convex hull
+    touching a triangle mesh, and libccd's "origin is outside of the polytope" abort for convex shapes
+    that touch exactly (seen for a capsule on a box face at round coordinates). So the plain distance
+    is asked first; it is final when the objects are apart, and for mesh pairs (whose depth is
+    unknown anyway). For convex pairs in contact the signed distance is asked with ``ob`` moved
+    ``CONTACT_PUSH`` towards ``oa`` (strictly into contact, away from the degenerate exact touch) and
+    lowered by ``CONTACT_PUSH``: the signed distance is 1-Lipschitz in a translation, so the value
+    stays at or below the true signed distance (safe), and at most ``2 * CONTACT_PUSH`` below it.
+    Witness points are only a direction hint for the support-function bounds.
+    """
+    req = fcl.DistanceRequest(enable_nearest_points=True, enable_signed_distance=False)
+    res = fcl.DistanceResult()
+    d = float(fcl.distance(oa, ob, req, res))
+    if d > 0.0 or mesh_pair:
+        return d, res.nearest_points
+    ta, tb = np.asarray(oa.getTranslation(), dtype=np.float64), np.asarray(ob.getTranslation(), dtype=np.float64)
+    Rb = np.asarray(ob.getRotation(), dtype=np.float64)
+    u = ta - tb
+    n = float(np.linalg.norm(u))
+    u = u / n if n > 1e-12 else np.array([0.0, 0.0, 1.0])
+    ob.setTransform(fcl.Transform(Rb, tb + CONTACT_PUSH * u))
+    try:
+        req = fcl.DistanceRequest(enable_nearest_points=True, enable_signed_distance=True)
+        res = fcl.DistanceResult()
+        d = float(fcl.distance(oa, ob, req, res)) - CONTACT_PUSH
+        p_a, p_b = (np.asarray(x, dtype=np.float64) for x in res.nearest_points)
+    finally:
+        ob.setTransform(fcl.Transform(Rb, tb))
+    return d, (p_a, p_b - CONTACT_PUSH * u)
+
 # ----------------------------------------------------------------------------------------- slots
 @dataclass(eq=False)
 class _Slot:
@@ -1018,16 +1057,14 @@ class ClearanceEngine:
         move_a, move_b = A.body >= 0, B.body >= 0
         Ra_, ta_ = (Wobj[0][:, sa], Wobj[1][:, sa]) if move_a else (None, None)
         Rb_, tb_ = (Wobj[0][:, sb], Wobj[1][:, sb]) if move_b else (None, None)
-        Transform, DistanceRequest, DistanceResult, distance = fcl.Transform, fcl.DistanceRequest, fcl.DistanceResult, fcl.distance
+        Transform = fcl.Transform
+        mesh_pair = A.kind == _KIND_MESH or B.kind == _KIND_MESH
         for j, i in enumerate(I.tolist()):
             if move_a:
                 oa.setTransform(Transform(Ra_[i], ta_[i]))
             if move_b:
                 ob.setTransform(Transform(Rb_[i], tb_[i]))
-            req = DistanceRequest(enable_nearest_points=True, enable_signed_distance=True)
-            res = DistanceResult()
-            d[j] = distance(oa, ob, req, res)
-            pts[j] = res.nearest_points
+            d[j], pts[j] = _fcl_distance(oa, ob, mesh_pair)
         return d, pts[:, 0], pts[:, 1]
 
     def _world_from_obj_i(self, s, i, Wobj):
@@ -1295,10 +1332,9 @@ class ClearanceEngine:
                 best_up = min(best_up, upper_sp[i, mm])
                 continue
             oa, ob = self._obj(sa, i, R, t, cache), self._obj(sb, i, R, t, cache)
-            req = fcl.DistanceRequest(enable_nearest_points=True, enable_signed_distance=True)
-            res = fcl.DistanceResult()
-            d_fcl = float(fcl.distance(oa, ob, req, res))
-            p0, p1 = (np.asarray(x, dtype=np.float64) for x in res.nearest_points)
+            mesh_pair = self._slots[sa].kind == _KIND_MESH or self._slots[sb].kind == _KIND_MESH
+            d_fcl, nearest = _fcl_distance(oa, ob, mesh_pair)
+            p0, p1 = (np.asarray(x, dtype=np.float64) for x in nearest)
             if not (np.isfinite(p0).all() and np.isfinite(p1).all() and np.isfinite(d_fcl)
                     and np.abs(p0).max() < 1e6 and np.abs(p1).max() < 1e6):
                 p0 = p1 = np.full(3, np.nan)  # no usable witness (seen for meshes in contact)

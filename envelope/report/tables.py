@@ -19,6 +19,7 @@ from .files import AtomicWriter, write_text_atomic
 from .motions import CSV_MOTION_COLUMNS, motion_ranks, motion_record, motion_rows
 from .motions import csv_cells as motion_csv_cells
 from .summary import (
+    DECIMALS,
     all_warnings,
     cell_summary,
     fmt,
@@ -89,8 +90,9 @@ BULK_ROWS = 2048
 """Rows converted together by the table writers: bounds their memory (the bytes do not depend on it)."""
 
 
-def row_chunks(rows, size: int = BULK_ROWS):
-    """``(start, rows[start:start + size])`` over ``rows``, in order."""
+def row_chunks(rows, size: int | None = None):
+    """``(start, rows[start:start + size])`` over ``rows``, in order (``size``: ``BULK_ROWS`` if None)."""
+    size = BULK_ROWS if size is None else size
     for start in range(0, len(rows), size):
         yield start, rows[start:start + size]
 
@@ -478,9 +480,34 @@ def _memory_key(res) -> tuple:
     return tuple(out)
 
 
-def _pairs_entries(results, index, status_codes, n_defs, witnesses, cache, defs, zone_kinds) -> list:
-    """The pairs entries (``_row_pairs``) of ``results`` (ClearanceResult of one configuration each,
-    all over the pair definitions ``defs``) as dicts, the arrays converted for all at once."""
+_ENCODE_NONFINITE = json.JSONEncoder(separators=(",", ":")).encode
+"""Like ``ENCODE`` but writing non-finite floats as ``NaN`` / ``Infinity`` / ``-Infinity`` (for numbers
+only, where ``list_texts`` then makes them ``null``)."""
+
+
+def list_texts(values, decimals: int | None = DECIMALS) -> list:
+    """``[ENCODE(rnd_list(v, decimals)) for v in values]`` for the rows of a 2-D array, encoded at once.
+
+    ``decimals=None``: integers or booleans, written as they are (``ENCODE(v.tolist())``). One call
+    encodes the nested list; its text splits at ``],[`` because the rows hold numbers only.
+    """
+    values = np.asarray(values)
+    if len(values) == 0:
+        return []
+    if decimals is None:
+        text = ENCODE(values.tolist())
+    else:
+        rounded = np.round(values.astype(np.float64), decimals) + 0.0
+        text = _ENCODE_NONFINITE(rounded.tolist())
+        if not np.isfinite(rounded).all():  # rnd_list writes every non-finite entry as null
+            text = text.replace("-Infinity", "null").replace("Infinity", "null").replace("NaN", "null")
+    return ["[" + part + "]" for part in text[2:-2].split("],[")]
+
+
+def _pairs_texts_of(results, index, status_codes, n_defs, witnesses, cache, defs, zone_kinds) -> list:
+    """``ENCODE`` of the pairs entries (``_row_pairs``) of ``results`` (ClearanceResult of one
+    configuration each, all over the pair definitions ``defs``), every column converted and encoded
+    for all results at once. Raises ValueError if the results differ in size."""
     from ..clearance import STATUS_NAMES
 
     def stacked(name, dtype, shape):
@@ -497,47 +524,61 @@ def _pairs_entries(results, index, status_codes, n_defs, witnesses, cache, defs,
     bounds = np.concatenate([[0], np.cumsum(np.bincount(who, minlength=len(results)))]).tolist()
     witness_body = rnd_list(to_mm(stacked("witness_body", np.float64, (-1, 3))[who, which]))
     witness_other = rnd_list(to_mm(stacked("witness_other", np.float64, (-1, 3))[who, which]))
-    columns = {
-        "distance_mm": rnd_list(to_mm(stacked("distance", np.float64, -1))),
-        "distance_upper_mm": rnd_list(to_mm(stacked("distance_upper", np.float64, -1))),
-        "depth_known": stacked("depth_known", bool, -1).astype(np.int8).tolist(),
-        "pruned": pruned.astype(np.int8).tolist(),
-        "status": codes.tolist(),
-    }
-    pair = pair_positions(shared_keys(defs, zone_kinds, cache), True, index, n_defs, cache)
     which = which.tolist()
+    # the keys in sorted order, as ENCODE writes them
+    head = '{"depth_known":'
+    columns = zip(
+        list_texts(stacked("depth_known", bool, -1).astype(np.int8), None),
+        list_texts(to_mm(stacked("distance", np.float64, -1))),
+        list_texts(to_mm(stacked("distance_upper", np.float64, -1))),
+        list_texts(pruned.astype(np.int8), None),
+        list_texts(codes, None),
+    )
+    pair = ENCODE(pair_positions(shared_keys(defs, zone_kinds, cache), True, index, n_defs, cache))
     out = []
-    for u in range(len(results)):
+    for u, (depth_known, distance, upper, pruned_text, status_text) in enumerate(columns):
         a, b = bounds[u], bounds[u + 1]
-        entry = {"pair": pair, **{k: v[u] for k, v in columns.items()}}
-        entry.update(witness=which[a:b], witness_body_mm=witness_body[a:b], witness_other_mm=witness_other[a:b])
-        out.append(entry)
+        if a < b:
+            witness = ENCODE(which[a:b]), ENCODE(witness_body[a:b]), ENCODE(witness_other[a:b])
+        else:
+            witness = "[]", "[]", "[]"
+        out.append(
+            f'{head}{depth_known},"distance_mm":{distance},"distance_upper_mm":{upper},"pair":{pair},'
+            f'"pruned":{pruned_text},"status":{status_text},"witness":{witness[0]},'
+            f'"witness_body_mm":{witness[1]},"witness_other_mm":{witness[2]}}}'
+        )
     return out
 
 
-def pairs_texts(rows, index, status_codes, n_defs, witnesses, cache) -> list:
+def pairs_texts(rows, index, status_codes, n_defs, witnesses, cache, start: int = 0) -> list:
     """``ENCODE`` of each row's pairs entry (as ``_row_pairs`` makes it), or None for a row whose pairs
     are not a lazy ``run_check`` sequence (or do not stack): those go pair by pair.
 
-    Rows whose results are the same memory (turn variants and their twins) are encoded once.
+    ``rows`` are ``result.rows[start:...]``. A turn variant whose results are the same memory as its
+    twin's (``twin_of``, in ``rows``) reuses the twin's text.
     """
     texts = [None] * len(rows)
-    groups: dict = {}  # id(defs) -> (defs, zone_kinds, {memory key: [result, row positions]})
+    groups: dict = {}  # id(defs) -> (defs, zone_kinds, [[result, row positions]])
+    slot_of: dict = {}  # row position -> (its group's list, the entry of its result)
     for k, row in enumerate(rows):
         lazy = lazy_pairs(row)
         if lazy is None:
             continue
         defs, res, zone_kinds = lazy
-        group = groups.setdefault(id(defs), (defs, zone_kinds, {}))[2]
-        group.setdefault(_memory_key(res), [res, []])[1].append(k)
-    for defs, zone_kinds, group in groups.values():
-        members = list(group.values())
+        members = groups.setdefault(id(defs), (defs, zone_kinds, []))[2]
+        twin = slot_of.get(int(row.twin_of) - start)
+        if twin is not None and twin[0] is members and _memory_key(twin[1][0]) == _memory_key(res):
+            twin[1][1].append(k)
+            slot_of[k] = twin
+            continue
+        members.append([res, [k]])
+        slot_of[k] = (members, members[-1])
+    for defs, zone_kinds, members in groups.values():
         try:
-            entries = _pairs_entries([m[0] for m in members], index, status_codes, n_defs, witnesses, cache, defs, zone_kinds)
+            encoded = _pairs_texts_of([m[0] for m in members], index, status_codes, n_defs, witnesses, cache, defs, zone_kinds)
         except ValueError:  # results of differing sizes
             continue
-        for (_, where), entry in zip(members, entries):
-            text = ENCODE(entry)
+        for (_, where), text in zip(members, encoded):
             for k in where:
                 texts[k] = text
     return texts
@@ -561,7 +602,7 @@ def json_row_lines(rows, start, rank, index, status_codes, n_defs, witnesses="fi
             ENCODE(row_record(start + k, row, rank[start + k], index, status_codes, n_defs, witnesses, cache))
             for k, row in enumerate(rows)
         ]
-    texts = pairs_texts(rows, index, status_codes, n_defs, witnesses, cache)
+    texts = pairs_texts(rows, index, status_codes, n_defs, witnesses, cache, start)
     q, excess = rnd_list(cols.q_deg), rnd_list(cols.limit_excess_deg)
     wb, wo = rnd_list(cols.witness_body_mm), rnd_list(cols.witness_other_mm)
     clearance, required, margin = ([rnd(v) for v in a.tolist()] for a in (cols.clearance_mm, cols.required_mm, cols.margin_mm))
