@@ -329,6 +329,75 @@ def solve(cell: Path, pose: str, frame: str, convention: str, as_json: bool) -> 
         click.echo(f"  {b['branch']:<16}{qs}  {b['notes']}")
 
 
+@main.command("map", epilog=CAUTION_HELP)
+@click.argument("cell", type=click.Path(path_type=Path))
+@click.option("--region", required=True, metavar="X0:X1,Y0:Y1,Z0:Z1",
+              help="TCP positions to evaluate, mm in --frame (a plane section: equal ends on one axis).")
+@click.option("--step", required=True, metavar="MM[,MM,MM]", help="Grid spacing in mm (one, or one per axis).")
+@click.option("--orientation", "orientation", default="180,0,0", show_default=True, metavar='"A,B,C;..."',
+              help="Tool orientations as Euler angles in degrees (see --convention), ';' between several.")
+@click.option("--convention", default="fixed-xyz", show_default=True, help="Euler convention of --orientation.")
+@click.option("--frame", default="world", show_default=True, help="Frame of --region and --orientation.")
+@click.option("--point", default=None, metavar="X,Y,Z", help="Grow the largest clear box around this point (mm).")
+@click.option("--out", "out", type=click.Path(path_type=Path), default=Path("envelope-map"), show_default=True,
+              help="Folder for map.npz, the slice images and the summary (and the resumable chunks).")
+@click.option("--jobs", type=click.IntRange(1, 256), default=1, show_default=True, help="Local worker processes.")
+@click.option("--dask", default=None, metavar="ADDRESS|local",
+              help="Run the chunks on a Dask cluster (needs 'envelope[dask]'); 'local' starts a LocalCluster.")
+@click.option("--chunk", "chunk_size", type=click.IntRange(1, 10_000_000), default=2048, show_default=True,
+              help="Poses per chunk (a resumed map needs the same value).")
+@click.option("--method", type=click.Choice(["exact", "fast"]), default="exact", show_default=True,
+              help="exact: the engine on every within-limits branch; fast: bounds first (see docs/maps.md).")
+@click.option("--max-points", type=click.IntRange(1), default=50_000_000, show_default=True,
+              help="Refuse grids with more poses than this.")
+@_guarded
+def map_command(cell: Path, region: str, step: str, orientation: str, convention: str, frame: str, point,
+                out: Path, jobs: int, dask, chunk_size: int, method: str, max_points: int) -> None:
+    """Layout study: clear IK branches and best clearance over a grid of TCP positions of CELL.
+
+    An interrupted map resumes from the finished chunks in OUT/chunks. Exit code 0 when it was
+    written, 2 for bad input.
+    """
+    from . import mapping
+    from .cell import load_cell
+
+    cell_model = load_cell(cell)
+    grid = mapping.make_grid(cell_model, mapping.parse_region(region), mapping.parse_step(step),
+                             mapping.parse_orientations(orientation), convention=convention, frame=frame,
+                             max_points=max_points)
+    point_mm = mapping.parse_point(point) if point else None
+    bar = _MapProgress()
+    try:
+        result = mapping.run_map(cell_model, grid, jobs=jobs, dask=dask, chunk_size=chunk_size,
+                                 chunk_dir=Path(out) / "chunks", progress=bar, method=method)
+    finally:
+        bar.close()
+    files = mapping.write_map(result, out, point_mm=point_mm, cell=cell_model)
+    summary = mapping.summarize(result, point_mm)
+    for k, (reach, clear) in enumerate(zip(summary.reachable_fraction, summary.clear_fraction)):
+        click.echo(f"orientation {k + 1}: reachable {100 * reach:.1f} %, reachable and clear {100 * clear:.1f} % "
+                   f"of {summary.n_positions} positions")
+    click.echo(f"clear at every orientation: {100 * summary.clear_all_fraction:.1f} %")
+    if summary.point_mm is not None:
+        click.echo(f"largest clear box around {summary.point_mm}: +-{summary.box_half_mm} mm ({summary.box_limit})")
+    click.echo(f"map: {files.npz}")
+
+
+class _MapProgress(_Progress):
+    """The map's bar: poses done, with the chunk rate and the estimated time left."""
+
+    def __init__(self):
+        super().__init__("mapping")
+
+    def __call__(self, done, total, rate=float("nan"), eta=float("nan")) -> None:
+        if self.enabled and self.bar is None and total > 0:
+            self.bar = click.progressbar(length=total, label=self.label, file=sys.stderr, show_eta=False,
+                                         item_show_func=lambda _: self.text)
+            self.bar.__enter__()
+        self.text = "" if rate != rate else f"{rate:,.0f} poses/s, {eta:,.0f} s left"
+        super().__call__(done, total)
+
+
 @main.command()
 @click.option("--out", "out", type=click.Path(path_type=Path), default=Path("envelope-demo"),
               show_default=True, help="Folder for the demo report.")
