@@ -1233,7 +1233,7 @@ class ClearanceEngine:
         (``level (k,)`` is a guess of it, python-fcl's distance, used only to choose the first set).
         """
         cen, rt, nrm, tris = slot_b.tri_centers, slot_b.tri_radius, slot_b.tri_normals, slot_b.tris
-        k, T = len(ta), len(cen)
+        k = len(ta)
         slot_a = self._slots[sa]
         ca = _times_rows(Ra, slot_a.center) + ta  # (k, 3)
         dd = cen[None] - ca[:, None]

@@ -633,6 +633,41 @@ def _radius_classes(radii, tol):
     return labels.reshape(-1), reps
 
 
+def mark_spheres(centres, radii, pitch: float, grow: float = 0.0):
+    """Conservative voxels of a union of spheres grown by ``grow`` (metres, world frame).
+
+    Parameters
+    ----------
+    centres : (m, 3) float
+    radii : (m,) float
+
+    Returns
+    -------
+    origin : (3,) float
+        Lower corner of voxel [0, 0, 0].
+    occupancy : (nx, ny, nz) bool
+        A voxel is marked when its centre is within half its diagonal of a grown sphere: sphere
+        centres are rasterised to voxel centres (at most half a diagonal ``t`` away) and dilated by a
+        Euclidean distance transform, per class of nearly equal radii, with the rasterisation error
+        ``t`` allowed for (``|x - c| >= edt - t``), so no voxel the union touches is missed.
+    """
+    C = np.asarray(centres, dtype=np.float64)
+    R = np.asarray(radii, dtype=np.float64)
+    t = 0.5 * math.sqrt(3.0) * pitch
+    labels, class_r = _radius_classes(R, 0.25 * pitch)
+    lo = (C - R[:, None]).min(axis=0) - grow - 2 * t
+    hi = (C + R[:, None]).max(axis=0) + grow + 2 * t
+    origin, n = _world_grid(lo, hi, pitch)
+    idx = np.clip(np.rint((C - origin) / pitch - 0.5).astype(np.int64), 0, np.array(n) - 1)
+    occ = np.zeros(n, dtype=bool)
+    for c in range(len(class_r)):
+        mask = np.zeros(n, dtype=bool)
+        sel = labels == c
+        mask[idx[sel, 0], idx[sel, 1], idx[sel, 2]] = True
+        occ |= _edt(mask, pitch) - t - class_r[c] <= t + grow
+    return origin, occ
+
+
 def _edt(mask, spacing):
     from scipy.ndimage import distance_transform_edt
 
@@ -1039,18 +1074,7 @@ def operating_space(cell, configurations, *, grow: float = 0.0, pitch: float = D
     C = C.reshape(-1, 3)
     R = np.tile(radii, len(Q))
     t = 0.5 * math.sqrt(3.0) * p
-    labels, class_r = _radius_classes(R, 0.25 * p)
-    lo = (C - R[:, None]).min(axis=0) - grow - 2 * t
-    hi = (C + R[:, None]).max(axis=0) + grow + 2 * t
-    origin, n = _world_grid(lo, hi, p)
-    idx = np.clip(np.rint((C - origin) / p - 0.5).astype(np.int64), 0, np.array(n) - 1)
-    occ = np.zeros(n, dtype=bool)
-    for c in range(len(class_r)):
-        mask = np.zeros(n, dtype=bool)
-        sel = labels == c
-        mask[idx[sel, 0], idx[sel, 1], idx[sel, 2]] = True
-        # voxel centre x, centre c rasterised to node m (|c - m| <= t): |x - c| >= edt - t
-        occ |= _edt(mask, p) - t - class_r[c] <= t + grow
+    origin, occ = mark_spheres(C, R, p, grow)
     excess = 4 * t + 0.25 * p + cover
     method = (
         f"operating space of {len(Q)} configuration(s), conservative voxels of {p * 1e3:g} mm: every body "

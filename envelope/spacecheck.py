@@ -393,9 +393,7 @@ def _no_suggestion(reason, blocking, method="") -> AxisSuggestion:
 def _search_profile(cell, limits, pitch):
     """Voxel centres (axis frame, (k, 3)) of a conservative cover of the restricted space over joint-1
     range [0, step] (axis frame: z along joint 1, origin on it), and the radius bound ``rho_max``."""
-    from scipy.ndimage import distance_transform_edt
-
-    from .space import _axis_frame, _radius_classes, _swept_instances, _world_grid
+    from .space import _axis_frame, _swept_instances, mark_spheres
 
     cover = 0.25 * pitch
     inst = _swept_instances(cell, limits, 0.5 * pitch, cover)
@@ -416,20 +414,7 @@ def _search_profile(cell, limits, pitch):
     C = np.stack([X, Y, Z], axis=-1).reshape(-1, 3)
     R = np.tile(inst.radii + 0.5 * d * rho, n + 1)
     allowance = float(cell.stopping_allowance)
-    t = 0.5 * math.sqrt(3.0) * pitch
-    labels, class_r = _radius_classes(R, 0.25 * pitch)
-    lo = (C - R[:, None]).min(axis=0) - allowance - 2 * t
-    hi = (C + R[:, None]).max(axis=0) + allowance + 2 * t
-    origin, shape = _world_grid(lo, hi, pitch)
-    idx = np.clip(np.rint((C - origin) / pitch - 0.5).astype(np.int64), 0, np.array(shape) - 1)
-    occ = np.zeros(shape, dtype=bool)
-    for k in range(len(class_r)):
-        mask = np.zeros(shape, dtype=bool)
-        sel = labels == k
-        mask[idx[sel, 0], idx[sel, 1], idx[sel, 2]] = True
-        # voxel centre x, sphere centre rasterised to node m (|c - m| <= t): |x - c| >= edt - t
-        edt = distance_transform_edt(~mask, sampling=pitch)
-        occ |= edt - t - class_r[k] <= t + allowance
+    origin, occ = mark_spheres(C, R, pitch, allowance)
     centres = origin + (np.argwhere(occ) + 0.5) * pitch
     return centres, world_from_axis
 

@@ -219,7 +219,6 @@ def _trig2_roots(k0, k1, k2, k3, k4):
     Returns ``(n, 4)`` angles, their cosines and sines, and validity. The variable is first shifted by the multiple of pi/2
     that keeps the half-angle quartic's leading coefficient largest, so a root at t = pi is found too.
     """
-    n = k0.shape[0]
     betas = np.array([0.0, 0.5 * np.pi, np.pi, 1.5 * np.pi])
     # leading coefficient of the quartic in tan(phi/2) with t = phi + beta is h(pi + beta)
     tt = np.pi + betas
