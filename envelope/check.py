@@ -383,6 +383,36 @@ def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True, p
     return CheckResult(cell=cell, rows=tuple(rows), motions=motions, warnings=tuple(cell.warnings), timings=timings)
 
 
+def check_cell(cell: Cell, *, jobs: int = 1, progress=None, space: bool = True, space_pitch: float = 0.04,
+               risk: str | None = None) -> CheckResult:
+    """The whole check of ``envelope check``: ``run_check`` (targets and programs), then the space check.
+
+    The operating space holds the within-limits target configurations and the programmed motions
+    (``envelope.sweep.swept_configurations``, grown so that the samples cover the whole motion).
+
+    Parameters
+    ----------
+    space : bool
+        Run the space check (``envelope.spacecheck.run_space_check``) into ``CheckResult.space``.
+    space_pitch : float
+        Voxel size of the spaces, m.
+    risk : {"high", "low"}, optional
+        ISO 13857 risk level for the fence tables (default: the cell's).
+    """
+    import dataclasses
+
+    result = run_check(cell, jobs=jobs, progress=progress)
+    if not space:
+        return result
+    from .spacecheck import run_space_check
+    from .sweep import swept_configurations
+
+    q_motion, grow = swept_configurations(cell, result.motions)
+    sc = run_space_check(cell, result=result, pitch=space_pitch, risk=risk,
+                         configurations=q_motion if len(q_motion) else None, grow=grow if len(q_motion) else 0.0)
+    return dataclasses.replace(result, space=sc)
+
+
 def solve_pose(cell: Cell, xyz_mm, angles_deg, *, frame: str = "world", convention: str = "fixed-xyz") -> dict:
     """The branch table of one TCP pose given in file units (mm, degrees) in a named frame.
 

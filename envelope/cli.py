@@ -109,23 +109,19 @@ CHECK_SPACE_PITCH_MM = 40.0
 
 def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool,
                           pitch_mm: float = CHECK_SPACE_PITCH_MM):
-    import dataclasses
-
     from .cell import load_cell
-    from .check import run_check
+    from .check import check_cell
     from .report import write_report
-    from .spacecheck import run_space_check, write_space_outputs
+    from .spacecheck import write_space_outputs
 
     cell = load_cell(cell_path)
     progress = _Progress("checking")
     try:
-        result = run_check(cell, jobs=jobs, progress=progress)
+        result = check_cell(cell, jobs=jobs, progress=progress, space_pitch=_pitch_metres(pitch_mm))
     finally:
         progress.close()
-    space = run_space_check(cell, result=result, pitch=_pitch_metres(pitch_mm))
-    result = dataclasses.replace(result, space=space)
     files = write_report(result, out)
-    files.update(write_space_outputs(space, out))
+    files.update(write_space_outputs(result.space, out))
     if as_json:
         click.echo(json.dumps(_json_summary(result, files), indent=2, sort_keys=True))
     else:
@@ -221,12 +217,11 @@ def space(cell: Path, out: Path, risk, pitch_mm: float, jobs: int) -> None:
     is far enough; 1 otherwise; 2 for bad input.
     """
     from .cell import load_cell
-    from .check import run_check
-    from .spacecheck import run_space_check, write_space_outputs
+    from .check import check_cell
+    from .spacecheck import write_space_outputs
 
     cell_model = load_cell(cell)
-    result = run_check(cell_model, jobs=jobs)
-    sc = run_space_check(cell_model, result=result, pitch=_pitch_metres(pitch_mm), risk=risk)
+    sc = check_cell(cell_model, jobs=jobs, space_pitch=_pitch_metres(pitch_mm), risk=risk).space
     files = write_space_outputs(sc, out)
     click.echo(_space_line(sc))
     for v in sc.panels:

@@ -921,6 +921,45 @@ def _row_not_run(program, m, mv, frm, label, why, q_start=None):
                      q_start=nan6 if q_start is None else q_start, q_end=nan6, note=why)
 
 
+def swept_configurations(cell, motions, *, max_step: float = 0.01) -> tuple:
+    """Configurations along every swept move, dense enough to stand for the whole motion.
+
+    Parameters
+    ----------
+    motions : iterable of MotionRow
+    max_step : float
+        m: the largest point motion between consecutive samples, by the displacement bound
+        (``displacement_bounds``: no point of any body moves more than ``sum_j r_j |dq_j|``).
+
+    Returns
+    -------
+    q : (m, 6) float
+        Joint values (rad) along the joint polylines of the moves (a joint move is one segment; a
+        linear move the IK polyline that the sweep follows).
+    grow : float
+        m: every body position along the moves lies within ``grow`` of the bodies posed at ``q``:
+        half a step, plus the largest linear-move path deviation bound.
+    """
+    coef = displacement_bounds(cell.arm, cell.bodies).max(axis=0)
+    pieces, grow = [], 0.5 * max_step
+    for m in motions:
+        if not (np.isfinite(m.q_start).all() and np.isfinite(m.q_end).all()):
+            continue  # not run
+        if m.motion == "joint":
+            knots = np.stack([m.q_start, m.q_end])
+        else:
+            lin = linear_path(cell, m.q_start, cell.target(m.to_target).world_from_tcp, coef)
+            if lin.path is None:
+                continue
+            knots = lin.path.q
+            grow = max(grow, 0.5 * max_step + float(lin.deviation))
+        for a, b in zip(knots[:-1], knots[1:]):
+            n = max(1, int(math.ceil(float(coef @ np.abs(b - a)) / max_step)))
+            pieces.append(a + np.linspace(0.0, 1.0, n + 1)[:, None] * (b - a))
+    q = np.concatenate(pieces) if pieces else np.zeros((0, 6))
+    return q, grow
+
+
 def run_sweep(cell, program=None, *, engine=None, tol: float = TOL, bound_tol: float = BOUND_TOL,
               bound_rel: float = BOUND_REL, path_tol: float = PATH_TOL) -> tuple:
     """Sweep every program of ``cell`` (or the one named, or a ``Program`` object) in every valid start

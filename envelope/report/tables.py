@@ -494,6 +494,8 @@ def list_texts(values, decimals: int | None = DECIMALS) -> list:
     values = np.asarray(values)
     if len(values) == 0:
         return []
+    if decimals is None and values.ndim == 2 and values.shape[1] and ((values >= 0) & (values <= 9)).all():
+        return _digit_texts(values)
     if decimals is None:
         text = ENCODE(values.tolist())
     else:
@@ -502,6 +504,18 @@ def list_texts(values, decimals: int | None = DECIMALS) -> list:
         if not np.isfinite(rounded).all():  # rnd_list writes every non-finite entry as null
             text = text.replace("-Infinity", "null").replace("Infinity", "null").replace("NaN", "null")
     return ["[" + part + "]" for part in text[2:-2].split("],[")]
+
+
+def _digit_texts(values) -> list:
+    """``[ENCODE(v.tolist()) for v in values]`` for a 2-D array of the integers 0..9 (flags and status
+    codes), built as bytes: ``[d,d,...,d]``, one ASCII digit per value."""
+    n, m = values.shape
+    text = np.full((n, 2 * m + 1), ord(","), dtype=np.uint8)
+    text[:, 0], text[:, -1] = ord("["), ord("]")
+    text[:, 1::2] = values.astype(np.uint8) + ord("0")
+    line = text.tobytes().decode("ascii")
+    width = 2 * m + 1
+    return [line[k * width:(k + 1) * width] for k in range(n)]
 
 
 def _pairs_texts_of(results, index, status_codes, n_defs, witnesses, cache, defs, zone_kinds) -> list:
@@ -585,10 +599,14 @@ def pairs_texts(rows, index, status_codes, n_defs, witnesses, cache, start: int 
 
 
 def _splice(record: dict, key: str, text: str) -> str:
-    """``ENCODE(record)`` with ``key`` added, whose value's ``ENCODE`` is ``text`` (not encoded again)."""
-    low = ENCODE({k: v for k, v in record.items() if k < key})[1:-1]
-    high = ENCODE({k: v for k, v in record.items() if k > key})[1:-1]
-    return "{" + ",".join(part for part in (low, json.dumps(key) + ":" + text, high) if part) + "}"
+    """``ENCODE(record)`` with ``key`` added, whose value's ``ENCODE`` is ``text`` (not encoded again).
+
+    ``record`` is encoded with ``key`` set to None, then ``"<key>":null`` is replaced: in JSON text
+    that can only be the key, since a quote inside a string is escaped and only a key is followed by
+    a colon. ``key`` must be a plain key not already in ``record`` (so it occurs exactly once).
+    """
+    marker = json.dumps(key) + ":"
+    return ENCODE({**record, key: None}).replace(marker + "null", marker + text, 1)
 
 
 def json_row_lines(rows, start, rank, index, status_codes, n_defs, witnesses="findings", cache=None) -> list:
