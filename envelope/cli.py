@@ -132,7 +132,7 @@ def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool,
             if row.status == "clear":
                 break
             click.echo(f"  {_row_text(row)}")
-        click.echo(_space_line(space))
+        click.echo(_space_line(result.space))
         click.echo(f"report: {files['report.html']}")
     return result
 

@@ -572,7 +572,7 @@ def pairs_texts(rows, index, status_codes, n_defs, witnesses, cache, start: int 
     twin's (``twin_of``, in ``rows``) reuses the twin's text.
     """
     texts = [None] * len(rows)
-    groups: dict = {}  # id(defs) -> (defs, zone_kinds, [[result, row positions]])
+    groups: dict = {}  # id(defs) -> (defs, zone_kinds, [[result, row positions, memory key or None]])
     slot_of: dict = {}  # row position -> (its group's list, the entry of its result)
     for k, row in enumerate(rows):
         lazy = lazy_pairs(row)
@@ -581,18 +581,22 @@ def pairs_texts(rows, index, status_codes, n_defs, witnesses, cache, start: int 
         defs, res, zone_kinds = lazy
         members = groups.setdefault(id(defs), (defs, zone_kinds, []))[2]
         twin = slot_of.get(int(row.twin_of) - start)
-        if twin is not None and twin[0] is members and _memory_key(twin[1][0]) == _memory_key(res):
-            twin[1][1].append(k)
-            slot_of[k] = twin
-            continue
-        members.append([res, [k]])
+        if twin is not None and twin[0] is members:
+            entry = twin[1]
+            if entry[2] is None:
+                entry[2] = _memory_key(entry[0])
+            if entry[2] == _memory_key(res):
+                entry[1].append(k)
+                slot_of[k] = twin
+                continue
+        members.append([res, [k], None])
         slot_of[k] = (members, members[-1])
     for defs, zone_kinds, members in groups.values():
         try:
             encoded = _pairs_texts_of([m[0] for m in members], index, status_codes, n_defs, witnesses, cache, defs, zone_kinds)
         except ValueError:  # results of differing sizes
             continue
-        for (_, where), text in zip(members, encoded):
+        for (_, where, _), text in zip(members, encoded):
             for k in where:
                 texts[k] = text
     return texts
