@@ -325,14 +325,7 @@ def row_scene(cell, row, *, extent=None) -> trimesh.Scene:
         scene.add_geometry(
             _coloured(mesh, rgba, status), node_name=f"body:{name}", geom_name=f"body:{name}", transform=GLTF_FROM_CELL
         )
-    for (zone, panel), mesh in zone_meshes(cell, extent).items():
-        offended = parts.zones.get((zone, panel)) in ("intrusion", "below margin")
-        rgba = ZONE_OFFENDED_RGBA if offended else ZONE_RGBA
-        name = zone_node_name(zone, panel)
-        scene.add_geometry(
-            _coloured(mesh, rgba, "offended zone" if offended else "zone"), node_name=name, geom_name=name,
-            transform=GLTF_FROM_CELL,
-        )
+    _add_zones(scene, cell, extent, lambda key: parts.zones.get(key) in ("intrusion", "below margin"))
     return scene
 
 
@@ -385,15 +378,19 @@ def motion_scene(cell, motion, *, extent=None) -> trimesh.Scene:
         scene.add_geometry(
             _coloured(mesh, rgba, label), node_name=f"body:{name}", geom_name=f"body:{name}", transform=GLTF_FROM_CELL
         )
-    for (zone, panel), mesh in zone_meshes(cell, extent).items():
-        offended = finding and (zone, panel) in zones
-        rgba = ZONE_OFFENDED_RGBA if offended else ZONE_RGBA
-        name = zone_node_name(zone, panel)
-        scene.add_geometry(
-            _coloured(mesh, rgba, "offended zone" if offended else "zone"), node_name=name, geom_name=name,
-            transform=GLTF_FROM_CELL,
-        )
+    _add_zones(scene, cell, extent, lambda key: finding and key in zones)
     return scene
+
+
+def _add_zones(scene, cell, extent, offended) -> None:
+    """Add every zone panel to ``scene``: red where ``offended((zone, panel))``, translucent grey else."""
+    for key, mesh in zone_meshes(cell, extent).items():
+        hit = bool(offended(key))
+        name = zone_node_name(*key)
+        scene.add_geometry(
+            _coloured(mesh, ZONE_OFFENDED_RGBA if hit else ZONE_RGBA, "offended zone" if hit else "zone"),
+            node_name=name, geom_name=name, transform=GLTF_FROM_CELL,
+        )
 
 
 def glb_bytes(scene: trimesh.Scene) -> bytes:
