@@ -433,10 +433,11 @@ def _row_pairs(row, index: dict, status_codes: list, n_defs: int, witnesses: str
     }
 
 
-def row_record(i, row, rank, index, status_codes, n_defs, witnesses="findings", cache=None) -> dict:
-    """One row of clearance.json (see docs/outputs.md)."""
-    joint, excess = worst_limit(row)
-    rec = {
+def _record_fields(i, rank, row, **numbers) -> dict:
+    """The fields of one clearance.json row but ``pairs``: the row's own texts, and ``numbers``
+    (already converted and rounded: q_deg, limit_excess_deg, limit_joint, clearance_mm, required_mm,
+    margin_mm, witness_body_mm, witness_other_mm), so the bulk and the one-row paths share one layout."""
+    return {
         "row": i,
         "rank": rank,
         "target": row.target,
@@ -446,19 +447,28 @@ def row_record(i, row, rank, index, status_codes, n_defs, witnesses="findings", 
         "twin_of": int(row.twin_of),
         "status": row.status,
         "clearance_status": row.clearance_status,
-        "q_deg": rnd_list(to_degrees(row.q)),
-        "limit_excess_deg": rnd_list(to_degrees(row.limit_excess)),
-        "limit_joint": joint,
         "singular": singular_names(row),
-        "clearance_mm": rnd(to_mm(row.clearance)),
-        "required_mm": rnd(to_mm(row.required)),
-        "margin_mm": rnd(to_mm(row.margin)),
         "closest_body": row.closest_body,
         "closest_other": row.closest_other,
-        "witness_body_mm": rnd_list(to_mm(row.witness_body)),
-        "witness_other_mm": rnd_list(to_mm(row.witness_other)),
         "note": row.note,
+        **numbers,
     }
+
+
+def row_record(i, row, rank, index, status_codes, n_defs, witnesses="findings", cache=None) -> dict:
+    """One row of clearance.json (see docs/outputs.md)."""
+    joint, excess = worst_limit(row)
+    rec = _record_fields(
+        i, rank, row,
+        q_deg=rnd_list(to_degrees(row.q)),
+        limit_excess_deg=rnd_list(to_degrees(row.limit_excess)),
+        limit_joint=joint,
+        clearance_mm=rnd(to_mm(row.clearance)),
+        required_mm=rnd(to_mm(row.required)),
+        margin_mm=rnd(to_mm(row.margin)),
+        witness_body_mm=rnd_list(to_mm(row.witness_body)),
+        witness_other_mm=rnd_list(to_mm(row.witness_other)),
+    )
     rec["pairs"] = _row_pairs(row, index, status_codes, n_defs, witnesses, {} if cache is None else cache)
     return rec
 
@@ -632,29 +642,11 @@ def json_row_lines(rows, start, rank, index, status_codes, n_defs, witnesses="fi
     out = []
     for k, row in enumerate(rows):
         i = start + k
-        rec = {
-            "row": i,
-            "rank": rank[i],
-            "target": row.target,
-            "frame": row.target_frame,
-            "branch": row.branch,
-            "turn": int(row.turn),
-            "twin_of": int(row.twin_of),
-            "status": row.status,
-            "clearance_status": row.clearance_status,
-            "q_deg": q[k],
-            "limit_excess_deg": excess[k],
-            "limit_joint": joints[k],
-            "singular": singular_names(row),
-            "clearance_mm": clearance[k],
-            "required_mm": required[k],
-            "margin_mm": margin[k],
-            "closest_body": row.closest_body,
-            "closest_other": row.closest_other,
-            "witness_body_mm": wb[k],
-            "witness_other_mm": wo[k],
-            "note": row.note,
-        }
+        rec = _record_fields(
+            i, rank[i], row, q_deg=q[k], limit_excess_deg=excess[k], limit_joint=joints[k],
+            clearance_mm=clearance[k], required_mm=required[k], margin_mm=margin[k],
+            witness_body_mm=wb[k], witness_other_mm=wo[k],
+        )
         if texts[k] is None:
             rec["pairs"] = _row_pairs(row, index, status_codes, n_defs, witnesses, cache)
             out.append(ENCODE(rec))
