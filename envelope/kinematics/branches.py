@@ -17,7 +17,10 @@ The integer code is ``4 * back + 2 * down + neg``; ``BRANCH_LABELS[code]`` is th
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
+from numba import njit
 
 BRANCH_LABELS = tuple(f"{s}-{e}-{w}" for s in ("front", "back") for e in ("up", "down") for w in ("pos", "neg"))
 """The eight labels, indexed by branch code."""
@@ -99,32 +102,40 @@ def place_in_limits(q: np.ndarray, limits: np.ndarray):
     excess : (..., 6) radians
         0 inside the range, else the distance of the nearest equivalent angle to the range.
     """
+    q = np.asarray(q, dtype=np.float64)
+    flat = np.ascontiguousarray(q.reshape(-1, q.shape[-1]))
+    placed, within, excess = np.empty_like(flat), np.empty(flat.shape, bool), np.empty_like(flat)
+    lim = np.ascontiguousarray(limits, dtype=np.float64)
+    _place_kernel(flat, lim[:, 0].copy(), lim[:, 1].copy(), placed, within, excess)
+    return placed.reshape(q.shape), within.reshape(q.shape), excess.reshape(q.shape)
+
+
+@njit(cache=True, nogil=True)
+def _place_kernel(q, lo, hi, placed, within, excess):
     two_pi = 2.0 * np.pi
-    # the solvers' angles (|x| <= 3 pi): two conditional turns suffice; chosen per element, so a
-    # pose's result never depends on the other poses of its batch
-    wrapped = np.where(q > np.pi, q - two_pi, q)
-    wrapped = np.where(wrapped < -np.pi, wrapped + two_pi, wrapped)
-    far = ~(np.abs(q) <= 3 * np.pi)
-    if far.any():
-        wrapped = np.where(far, np.remainder(q + np.pi, two_pi) - np.pi, wrapped)
-    lo, hi = limits[:, 0], limits[:, 1]
-    part = ~((lo <= -np.pi) & (hi >= np.pi))  # joints whose range is not the whole circle
-    if not part.any():  # the wrapped angle is in range, and the smallest
-        return wrapped, np.ones(q.shape, bool), np.zeros_like(q)
-    lo, hi, w = lo[part], hi[part], wrapped[..., part]
-    m_lo = np.ceil((lo - w) / two_pi - 1e-12)
-    m_hi = np.floor((hi - w) / two_pi + 1e-12)
-    ok = m_lo <= m_hi
-    m0 = np.clip(np.round(-w / two_pi), m_lo, m_hi)
-    inside = np.clip(w + two_pi * m0, lo, hi)  # clip only absorbs the 1e-12 slack above
-    # distance of the nearest of w - 2 pi, w, w + 2 pi to the range
-    dist = np.minimum(np.maximum(lo - w, w - hi), np.maximum(lo - (w + two_pi), (w + two_pi) - hi))
-    dist = np.minimum(dist, np.maximum(lo - (w - two_pi), (w - two_pi) - hi))
-    placed, within, excess = wrapped.copy(), np.ones(q.shape, bool), np.zeros_like(q)
-    placed[..., part] = np.where(ok, inside, w)
-    within[..., part] = ok
-    excess[..., part] = np.where(ok, 0.0, np.maximum(dist, 0.0))
-    return placed, within, excess
+    for i in range(q.shape[0]):
+        for j in range(q.shape[1]):
+            x = q[i, j]
+            # the solvers' angles (|x| <= 3 pi): two conditional turns; anything else by remainder
+            if abs(x) <= 3 * np.pi:
+                w = x - two_pi if x > np.pi else x
+                w = w + two_pi if w < -np.pi else w
+            else:
+                w = np.remainder(x + np.pi, two_pi) - np.pi
+            lo_, hi_ = lo[j], hi[j]
+            if lo_ <= -np.pi and hi_ >= np.pi:  # the whole circle: the wrapped angle is in range, the smallest
+                placed[i, j], within[i, j], excess[i, j] = w, True, 0.0
+                continue
+            m_lo = math.ceil((lo_ - w) / two_pi - 1e-12)
+            m_hi = math.floor((hi_ - w) / two_pi + 1e-12)
+            if m_lo <= m_hi:
+                m0 = min(max(float(round(-w / two_pi)), m_lo), m_hi)
+                placed[i, j] = min(max(w + two_pi * m0, lo_), hi_)  # the clip only absorbs the 1e-12 slack
+                within[i, j], excess[i, j] = True, 0.0
+            else:  # distance of the nearest of w - 2 pi, w, w + 2 pi to the range
+                dist = min(max(lo_ - w, w - hi_), max(lo_ - (w + two_pi), (w + two_pi) - hi_))
+                dist = min(dist, max(lo_ - (w - two_pi), (w - two_pi) - hi_))
+                placed[i, j], within[i, j], excess[i, j] = w, False, max(dist, 0.0)
 
 
 def turn_counts(q_placed: np.ndarray, limits: np.ndarray):
