@@ -407,10 +407,12 @@ def check_cell(cell: Cell, *, jobs: int = 1, progress=None, space: bool = True, 
     from .spacecheck import run_space_check
     from .sweep import swept_configurations
 
+    t0 = time.perf_counter()
     q_motion, grow = swept_configurations(cell, result.motions)
     sc = run_space_check(cell, result=result, pitch=space_pitch, risk=risk,
                          configurations=q_motion if len(q_motion) else None, grow=grow if len(q_motion) else 0.0)
-    return dataclasses.replace(result, space=sc)
+    timings = dict(result.timings, space_s=time.perf_counter() - t0)
+    return dataclasses.replace(result, space=sc, timings=timings)
 
 
 def solve_pose(cell: Cell, xyz_mm, angles_deg, *, frame: str = "world", convention: str = "fixed-xyz") -> dict:

@@ -79,7 +79,7 @@ therefore exact whenever it is below the required clearance.
 
 Batching
 --------
-Configurations are evaluated in blocks of up to 256. Within a block the exact queries that the
+Configurations are evaluated in blocks of up to 1024. Within a block the exact queries that the
 one-by-one visit above makes are found in rounds -- first every pair with a cheap margin <= 0 (the
 visit never stops before those), then, per configuration, the next pair in cheap-margin order while
 its margin is <= the worst so far -- and each round's queries are batched per pair across
@@ -106,6 +106,7 @@ import fcl
 import numpy as np
 
 from . import geometry as g
+from . import gjk
 from .errors import InputError
 
 STATUS_CLEAR = 0
@@ -119,7 +120,7 @@ DEPTH_UNKNOWN = -0.0
 """The distance reported (with ``depth_known`` False) when a body touches or enters a non-convex zone."""
 
 _KIND_CONVEX, _KIND_MESH, _KIND_HALF = 0, 1, 2
-_BLOCK = 256  # configurations per block (exact queries are batched per pair across a block)
+_BLOCK = 1024  # configurations per block (exact queries are batched per pair across a block)
 
 
 @dataclass(frozen=True)
@@ -222,7 +223,7 @@ CONTACT_PUSH = 1e-5
 distance is asked for, and the answer lowered by as much (see ``_fcl_distance``)."""
 
 
-def _fcl_distance(oa, ob, mesh_pair: bool):
+def _fcl_distance(oa, ob, mesh_pair: bool, contact: bool = False):
     """python-fcl distance and witness points ``(d, (p_a, p_b))`` of two posed objects, without crashing.
 
     python-fcl 0.7's signed distance can crash the process: a segmentation fault for a convex hull
@@ -233,13 +234,15 @@ def _fcl_distance(oa, ob, mesh_pair: bool):
     ``CONTACT_PUSH`` towards ``oa`` (strictly into contact, away from the degenerate exact touch) and
     lowered by ``CONTACT_PUSH``: the signed distance is 1-Lipschitz in a translation, so the value
     stays at or below the true signed distance (safe), and at most ``2 * CONTACT_PUSH`` below it.
-    Witness points are only a direction hint for the support-function bounds.
+    Witness points are only a direction hint for the support-function bounds. ``contact``: the caller
+    knows the convex objects touch or overlap (GJK said so), so the plain query is skipped.
     """
-    req = fcl.DistanceRequest(enable_nearest_points=True, enable_signed_distance=False)
-    res = fcl.DistanceResult()
-    d = float(fcl.distance(oa, ob, req, res))
-    if d > 0.0 or mesh_pair:
-        return d, res.nearest_points
+    if not (contact and not mesh_pair):
+        req = fcl.DistanceRequest(enable_nearest_points=True, enable_signed_distance=False)
+        res = fcl.DistanceResult()
+        d = float(fcl.distance(oa, ob, req, res))
+        if d > 0.0 or mesh_pair:
+            return d, res.nearest_points
     ta, tb = np.asarray(oa.getTranslation(), dtype=np.float64), np.asarray(ob.getTranslation(), dtype=np.float64)
     Rb = np.asarray(ob.getRotation(), dtype=np.float64)
     u = ta - tb
@@ -280,6 +283,7 @@ class _Slot:
     tri_centers: np.ndarray = None
     tri_radius: np.ndarray = None
     wound: bool = False  # zone meshes: closed and consistently wound (winding-number inside test)
+    verts: np.ndarray = None  # convex polytopes (hulls, boxes): vertices (local; world for a zone), for GJK
 
 
 def _outer(shape):
@@ -390,6 +394,7 @@ def _make_slot(shape, *, body, frame, pad, item):
     slot = _Slot(shape, kind, body, frame, pad, c, rad, (oc, ow), r, rho, z, _axes(shape), g.interior_point(shape))
     geom, slot.frame_from_obj = _fcl_geometry(shape)
     slot.obj = fcl.CollisionObject(geom, _transform(slot.frame_from_obj))
+    slot.verts = _polytope_vertices(shape)
     if kind == _KIND_MESH:
         tris = np.asarray(shape.vertices)[np.asarray(shape.faces)]
         nrm = np.cross(tris[:, 1] - tris[:, 0], tris[:, 2] - tris[:, 0])
@@ -400,6 +405,46 @@ def _make_slot(shape, *, body, frame, pad, item):
         slot.wound = bool(shape.watertight) and g.is_consistently_wound(shape)
         slot.tri_radius = np.sqrt(((tris - slot.tri_centers[:, None]) ** 2).sum(axis=2)).max(axis=1)
     return slot
+
+
+def _polytope_vertices(shape):
+    """``(m, 3)`` vertices whose convex hull is ``shape`` (a box or a convex hull), else None."""
+    if isinstance(shape, g.Convex):
+        return np.ascontiguousarray(shape.vertices, dtype=np.float64)
+    if isinstance(shape, g.Box):
+        corners = np.array([[x, y, z] for x in (-0.5, 0.5) for y in (-0.5, 0.5) for z in (-0.5, 0.5)]) * shape.extents
+        return np.ascontiguousarray(corners @ shape.pose[:3, :3].T + shape.pose[:3, 3])
+    return None
+
+
+def _separation_batch(A, B, Ra, ta, Rb, tb, fallback):
+    """Distance and closest points ``(d (k,), p_a (k, 3), p_b (k, 3))`` of slots ``A``, ``B`` at slot
+    poses ``Ra, ta, Rb, tb`` (``(k, 3, 3)``, ``(k, 3)``; ignored for a zone slot, whose shape is in
+    world coordinates).
+
+    Two polytopes (hulls, boxes) go to the compiled GJK (``envelope.gjk``) where they are apart;
+    ``fallback(js, contact)`` supplies python-fcl's answer for the rest as ``(d (m,), pts (m, 2, 3))``
+    (``contact``: GJK found them touching or overlapping, so the plain distance query can be
+    skipped). Either way only the direction of the points is used for the certified bounds.
+    """
+    k = len(Ra)
+    d = np.empty(k)
+    pa, pb = np.empty((k, 3)), np.empty((k, 3))
+    if A.verts is None or B.verts is None:
+        df, pts = fallback(np.arange(k), False)
+        return df, pts[:, 0], pts[:, 1]
+    eye, zero = np.broadcast_to(np.eye(3), (k, 3, 3)), np.zeros((k, 3))
+    RA, TA = (Ra, ta) if A.body >= 0 else (eye, zero)
+    RB, TB = (Rb, tb) if B.body >= 0 else (eye, zero)
+    dg, ga, gb, state = gjk.distance(A.verts, RA, TA, B.verts, RB, TB)
+    ok = state == gjk.SEPARATED
+    d[ok], pa[ok], pb[ok] = dg[ok], ga[ok], gb[ok]
+    for which, contact in ((gjk.TOUCHING, True), (gjk.UNSETTLED, False)):
+        todo = np.flatnonzero(state == which)
+        if todo.size:
+            df, pts = fallback(todo, contact)
+            d[todo], pa[todo], pb[todo] = df, pts[:, 0], pts[:, 1]
+    return d, pa, pb
 
 
 def segment_closest_points(p0, p1, q0, q1):
@@ -1047,7 +1092,7 @@ class ClearanceEngine:
     # direction), every support gap, projection and mesh bound is one numpy expression over the batch.
     # Only elementwise arithmetic is used, so a configuration's values do not depend on the batch.
 
-    def _fcl_batch(self, sa, sb, I, Wobj):
+    def _fcl_batch(self, sa, sb, I, Wobj, contact=False):
         """python-fcl signed distance and witnesses of slots ``sa``, ``sb`` in configurations ``I``."""
         A, B = self._slots[sa], self._slots[sb]
         oa, ob = A.obj, B.obj
@@ -1064,8 +1109,13 @@ class ClearanceEngine:
                 oa.setTransform(Transform(Ra_[i], ta_[i]))
             if move_b:
                 ob.setTransform(Transform(Rb_[i], tb_[i]))
-            d[j], pts[j] = _fcl_distance(oa, ob, mesh_pair)
-        return d, pts[:, 0], pts[:, 1]
+            d[j], pts[j] = _fcl_distance(oa, ob, mesh_pair, contact)
+        return d, pts
+
+    def _separation(self, sa, sb, I, Ra, ta, Rb, tb, Wobj):
+        """``_separation_batch`` of slots ``sa``, ``sb`` in configurations ``I`` (python-fcl as fallback)."""
+        A, B = self._slots[sa], self._slots[sb]
+        return _separation_batch(A, B, Ra, ta, Rb, tb, lambda js, contact: self._fcl_batch(sa, sb, I[js], Wobj, contact))
 
     def _world_from_obj_i(self, s, i, Wobj):
         slot = self._slots[s]
@@ -1113,7 +1163,7 @@ class ClearanceEngine:
                 continue
             A, B = self._slots[sa], self._slots[sb]
             Ra, ta, Rb, tb = R[I, sa], t[I, sa], R[I, sb], t[I, sb]
-            d_fcl, p0, p1 = self._fcl_batch(sa, sb, I, Wobj)
+            d_fcl, p0, p1 = self._separation(sa, sb, I, Ra, ta, Rb, tb, Wobj)
             fin = (np.isfinite(p0).all(axis=1) & np.isfinite(p1).all(axis=1) & np.isfinite(d_fcl)
                    & (np.abs(p0).max(axis=1) < 1e6) & (np.abs(p1).max(axis=1) < 1e6))
             if not fin.all():  # no usable witness (seen for meshes in contact)
@@ -1333,8 +1383,14 @@ class ClearanceEngine:
                 continue
             oa, ob = self._obj(sa, i, R, t, cache), self._obj(sb, i, R, t, cache)
             mesh_pair = self._slots[sa].kind == _KIND_MESH or self._slots[sb].kind == _KIND_MESH
-            d_fcl, nearest = _fcl_distance(oa, ob, mesh_pair)
-            p0, p1 = (np.asarray(x, dtype=np.float64) for x in nearest)
+
+            def fallback(js, contact, oa=oa, ob=ob, mesh_pair=mesh_pair):
+                dj, pts = _fcl_distance(oa, ob, mesh_pair, contact)
+                return np.array([dj]), np.asarray(pts, dtype=np.float64)[None]
+
+            d1, p0, p1 = _separation_batch(self._slots[sa], self._slots[sb], R[i:i + 1, sa], t[i:i + 1, sa],
+                                           R[i:i + 1, sb], t[i:i + 1, sb], fallback)
+            d_fcl, p0, p1 = float(d1[0]), p0[0], p1[0]
             if not (np.isfinite(p0).all() and np.isfinite(p1).all() and np.isfinite(d_fcl)
                     and np.abs(p0).max() < 1e6 and np.abs(p1).max() < 1e6):
                 p0 = p1 = np.full(3, np.nan)  # no usable witness (seen for meshes in contact)

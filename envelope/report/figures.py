@@ -21,6 +21,7 @@ from matplotlib.collections import PolyCollection  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.patches import Patch, Polygon  # noqa: E402
 from scipy.spatial import ConvexHull, QhullError  # noqa: E402
+from trimesh.transformations import transform_points  # noqa: E402
 
 from ..geometry import HalfSpace, TriMesh  # noqa: E402
 from ..scene import STATUS_RGBA, cell_extent, shape_mesh, world_from_frames  # noqa: E402
@@ -103,16 +104,85 @@ def _silhouette(points_2d):
     return pts[hull.vertices]
 
 
-def _draw_shape(ax, shape, world_from_parent, axes, extent, padding, *, face, edge, lw, z, label=None):
-    mesh = shape_mesh(shape, extent=extent, padding=padding)
-    mesh.apply_transform(world_from_parent)
-    pts = to_mm(mesh.vertices)[:, axes]
+class FigureCache:
+    """Work shared by the figures of one result, done once: each target's worst status, the zones of the
+    finding rows, the target TCPs, the shape meshes and the drawing extents.
+
+    ``report_figures`` makes one and hands it to every ``view_figure`` call; a figure drawn on its own
+    makes its own. The result is not changed, so the cache stays valid for as long as the result lives.
+    """
+
+    def __init__(self, result):
+        self.result = result
+        cell = result.cell
+        rank = {s: k for k, s in enumerate(_SEVERITY)}
+        unknown = len(_SEVERITY)
+        worst: dict = {}  # target -> (severity, status) of its worst row; the first of equals is kept
+        zone_names = {z.name for z in cell.zones}
+        finding_zones: set = set()
+        for r in result.rows:
+            k = rank.get(r.status, unknown)
+            cur = worst.get(r.target)
+            if cur is None or k < cur[0]:
+                worst[r.target] = (k, r.status)
+            if r.status in FINDING_STATUSES:
+                zone = zone_of(r.closest_other, zone_names)
+                if zone:
+                    finding_zones.add(zone)
+        self.worst_status = {t: s for t, (_, s) in worst.items()}
+        """Target name -> the worst status among its rows (targets with rows only)."""
+        self.finding_zones = finding_zones
+        """The zones named by the closest pair of an intrusion / below-margin row."""
+        self.tcp_all = np.array([np.asarray(t.world_from_tcp)[:3, 3] for t in cell.targets], dtype=np.float64).reshape(-1, 3)
+        """(n_targets, 3) m: every target's TCP in the cell frame, in ``cell.targets`` order."""
+        self._meshes: dict = {}
+        self._extents: dict = {}
+
+    def mesh(self, shape, extent=None, padding: float = 0.0):
+        """``(vertices (n, 3) m, faces or None)`` of ``scene.shape_mesh(shape, extent=, padding=)`` in the
+        shape's parent frame (faces for a ``TriMesh`` only). The extent matters for half-spaces only."""
+        key = (id(shape), float(padding), np.asarray(extent, dtype=np.float64).tobytes() if isinstance(shape, HalfSpace) and extent is not None else None)
+        hit = self._meshes.get(key)
+        if hit is None:
+            m = shape_mesh(shape, extent=extent, padding=padding)
+            faces = np.asarray(m.faces) if isinstance(shape, TriMesh) else None
+            hit = (shape, np.asarray(m.vertices, dtype=np.float64), faces)  # the shape is kept so its id stays its own
+            self._meshes[key] = hit
+        return hit[1], hit[2]
+
+    def extent(self, rows, motions) -> np.ndarray:
+        """``scene.cell_extent`` of the cell with the arm at the given rows and motions and every target TCP."""
+        key = (tuple(rows), tuple(motions))
+        if key not in self._extents:
+            cell, result = self.result.cell, self.result
+            qs = [result.rows[i].q for i in rows] + [result.motions[i].q_at_min for i in motions]
+            if qs:
+                # the arm at each configuration as points (the vertices cell_extent would take the bounds
+                # of), from the cached meshes: the same box without meshing the arm again
+                points = [self.tcp_all]
+                for q in qs:
+                    world_from_frame = world_from_frames(cell, q)
+                    for body in cell.bodies:
+                        for s in body.shapes:
+                            v, _ = self.mesh(s, None, body.padding)
+                            points.append(transform_points(v, world_from_frame[body.frame]))
+                extent = cell_extent(cell, qs=np.empty((0, 6)), points=np.vstack(points))
+            else:
+                extent = cell_extent(cell, qs=None, points=self.tcp_all)
+            self._extents[key] = extent
+        return self._extents[key]
+
+
+def _draw_shape(ax, shape, world_from_parent, axes, extent, padding, *, face, edge, lw, z, cache, label=None):
+    vertices, faces = cache.mesh(shape, extent, padding)
+    world = to_mm(transform_points(vertices, world_from_parent))
+    pts = world[:, axes]
     if isinstance(shape, TriMesh):
         # the triangles of a (possibly non-convex) mesh, in the face colour blended onto white and drawn
         # opaque, so that overlapping triangles do not darken each other
         r, g, b, a = face
         solid = (1 - a + a * r, 1 - a + a * g, 1 - a + a * b, 1.0)
-        tris = to_mm(mesh.vertices)[mesh.faces][:, :, axes]
+        tris = world[faces][:, :, axes]
         ax.add_collection(PolyCollection(tris, facecolors=[solid], edgecolors="none", antialiaseds=False, zorder=z - 0.5))
         poly = _silhouette(pts)
         if poly is not None:
@@ -123,7 +193,7 @@ def _draw_shape(ax, shape, world_from_parent, axes, extent, padding, *, face, ed
         ax.add_patch(Polygon(poly, closed=True, facecolor=face, edgecolor=edge, linewidth=lw, zorder=z, label=label))
 
 
-def view_figure(result, view: str = "plan", *, rows=None, motions=()):
+def view_figure(result, view: str = "plan", *, rows=None, motions=(), cache=None):
     """One orthographic view of the cell as a matplotlib Figure (axes in mm, equal aspect).
 
     Parameters
@@ -136,16 +206,26 @@ def view_figure(result, view: str = "plan", *, rows=None, motions=()):
         Indices into ``result.motions`` whose worst configuration (``q_at_min``) is drawn too, hatched
         with dashed outlines, a diamond at the TCP and labelled ``M<k>`` (k = position in this list + 1);
         ``motions.drawn_motions(result)`` gives the usual choice.
+    cache : FigureCache, optional
+        Work shared with other figures of the same result (made here if None).
     """
     cell = result.cell
+    if cache is None:
+        cache = FigureCache(result)
     axes = VIEWS[view]
     depth_axis = 3 - axes[0] - axes[1]
     if rows is None:
         rows = drawn_rows(result)
-    tcp_all = np.array([np.asarray(t.world_from_tcp)[:3, 3] for t in cell.targets]).reshape(-1, 3)
-    qs = [result.rows[i].q for i in rows] + [result.motions[i].q_at_min for i in motions]
-    extent = cell_extent(cell, qs=qs if qs else None, points=tcp_all)
-    offended = offended_zones(result, rows) if rows or not motions else set()
+    motions = list(motions)
+    extent = cache.extent(rows, motions)
+    if rows or not motions:
+        offended = set(cache.finding_zones)
+        for i in rows:
+            for p in result.rows[i].pairs:
+                if p.kind != "self" and p.status in FINDING_STATUSES:
+                    offended.add(p.other)
+    else:
+        offended = set()
     offended |= motion_offended_zones(result, motions)
     fig, ax = plt.subplots(figsize=(7.0, 6.0), dpi=DPI)
 
@@ -159,9 +239,10 @@ def view_figure(result, view: str = "plan", *, rows=None, motions=()):
         for shape in zone.shapes:
             if isinstance(shape, HalfSpace) and abs(shape.normal[depth_axis]) > 0.99:
                 continue  # the plane faces the viewer: it would cover the whole view
-            _draw_shape(ax, shape, np.eye(4), axes, extent, 0.0, face=face, edge=edge, lw=lw, z=1)
+            _draw_shape(ax, shape, np.eye(4), axes, extent, 0.0, face=face, edge=edge, lw=lw, z=1, cache=cache)
             if not isinstance(shape, HalfSpace):
-                centres.append(to_mm(shape_mesh(shape).bounds.mean(axis=0))[list(axes)])
+                v, _ = cache.mesh(shape)
+                centres.append(to_mm(((v.min(axis=0) + v.max(axis=0)) / 2))[list(axes)])
         if centres and view == "plan" and len(cell.zones) <= 30:  # names only in the plan: elevations crowd
             c = np.mean(centres, axis=0)
             ax.annotate(zone.name, c, fontsize=7, ha="center", va="center", color=(0.2, 0.2, 0.2), zorder=5)
@@ -181,7 +262,7 @@ def view_figure(result, view: str = "plan", *, rows=None, motions=()):
             for shape in body.shapes:
                 _draw_shape(
                     ax, shape, world_from_frame[body.frame], axes, extent, body.padding,
-                    face=face, edge=colour[:3] + (0.9,), lw=0.5, z=3,
+                    face=face, edge=colour[:3] + (0.9,), lw=0.5, z=3, cache=cache,
                 )
         tcp = to_mm((world_from_frame[6] @ cell.tool.flange_from_tcp)[:3, 3])
         ax.annotate(
@@ -190,21 +271,16 @@ def view_figure(result, view: str = "plan", *, rows=None, motions=()):
         )
 
     for k, i in reversed(list(enumerate(motions, start=1))):  # the worst (M1) drawn last, on top
-        _draw_motion_arm(ax, result, i, k, axes, extent)
+        _draw_motion_arm(ax, result, i, k, axes, extent, cache)
 
     # every target's TCP, coloured by the worst status among its rows
-    worst: dict = {}
-    for row in result.rows if rows or not motions else ():  # a motions-only view leaves the target dots out
-        if row.target not in worst or _sev(row.status) < _sev(worst[row.target]):
-            worst[row.target] = row.status
-    tcps, colours = [], []
-    for t in cell.targets:
-        if t.name in worst:
-            tcps.append(to_mm(np.asarray(t.world_from_tcp)[:3, 3])[list(axes)])
-            colours.append(status_colour(worst[t.name]))
-    if tcps:
-        tcps = np.array(tcps)
-        ax.scatter(tcps[:, 0], tcps[:, 1], s=14, c=colours, edgecolors="black", linewidths=0.4, zorder=7)
+    worst = cache.worst_status if rows or not motions else {}  # a motions-only view leaves the target dots out
+    if worst:
+        keep = [k for k, t in enumerate(cell.targets) if t.name in worst]
+        if keep:
+            tcps = to_mm(cache.tcp_all[keep])[:, list(axes)]
+            colours = [status_colour(worst[cell.targets[k].name]) for k in keep]
+            ax.scatter(tcps[:, 0], tcps[:, 1], s=14, c=colours, edgecolors="black", linewidths=0.4, zorder=7)
 
     base = to_mm(np.asarray(cell.world_from_base)[:3, 3])[list(axes)]
     ax.plot([base[0]], [base[1]], marker="+", color="black", markersize=10, zorder=8)
@@ -257,7 +333,7 @@ def motion_offended_zones(result, motions) -> set:
     return out
 
 
-def _draw_motion_arm(ax, result, i, k, axes, extent):
+def _draw_motion_arm(ax, result, i, k, axes, extent, cache):
     """The arm at motion ``i``'s worst configuration: hatched, dashed outlines, diamond TCP, ``M<k>`` label."""
     cell = result.cell
     m = result.motions[i]
@@ -265,9 +341,8 @@ def _draw_motion_arm(ax, result, i, k, axes, extent):
     colour = status_colour(m.status)
     for body in cell.bodies:
         for shape in body.shapes:
-            mesh = shape_mesh(shape, extent=extent, padding=body.padding)
-            mesh.apply_transform(world_from_frame[body.frame])
-            poly = _silhouette(to_mm(mesh.vertices)[:, axes])
+            vertices, _ = cache.mesh(shape, extent, body.padding)
+            poly = _silhouette(to_mm(transform_points(vertices, world_from_frame[body.frame]))[:, axes])
             if poly is not None:
                 ax.add_patch(Polygon(
                     poly, closed=True, facecolor=colour[:3] + (0.18,), edgecolor=colour[:3] + (1.0,), hatch="////",
@@ -281,54 +356,63 @@ def _draw_motion_arm(ax, result, i, k, axes, extent):
     )
 
 
+def chart_points(result) -> dict:
+    """What ``clearance_chart`` draws, as arrays (one entry per row of ``result.rows``, in order).
+
+    ``targets``: the target names in check order; ``x``: each row's position (its target's column
+    index, its branches side by side in it); ``width``: the branch slot width; ``clearance_mm``,
+    ``required_mm``; ``status``: each row's status.
+    """
+    rows = result.rows
+    n = len(rows)
+    index: dict = {}
+    col = np.empty(n, dtype=np.int64)
+    for k, row in enumerate(rows):
+        col[k] = index.setdefault(row.target, len(index))
+    per_target = np.bincount(col, minlength=len(index))
+    # slot of each row within its target: its position among the target's rows, in row order
+    order = np.argsort(col, kind="stable")
+    starts = np.concatenate(([0], np.cumsum(per_target)[:-1]))
+    slot = np.empty(n, dtype=np.int64)
+    slot[order] = np.arange(n) - np.repeat(starts, per_target)
+    width = 0.8 / per_target[col] if n else np.zeros(0)
+    x = col - 0.4 + (slot + 0.5) * width
+    clearance = to_mm(np.fromiter((r.clearance for r in rows), dtype=np.float64, count=n))
+    required = to_mm(np.fromiter((r.required for r in rows), dtype=np.float64, count=n))
+    status = np.array([r.status for r in rows], dtype=object)
+    return {"targets": list(index), "x": x, "width": width, "clearance_mm": clearance, "required_mm": required, "status": status}
+
+
 def clearance_chart(result):
     """Clearance (mm) of every target x branch row against its required clearance, as a Figure.
 
     One column per target (in check order), its branches side by side in it; a marker per branch
-    coloured by status; the required clearance of the branch's closest pair as a black bar above it; an unreachable target as a cross on the zero line.
+    coloured by status, the more severe statuses drawn on top; the required clearance of the branch's
+    closest pair as a black bar above it; an unreachable target as a cross on the zero line. Every row
+    is drawn (the bars as one line with breaks, the markers as one collection per status).
     """
-    targets: list = []
-    index: dict = {}
-    for row in result.rows:
-        if row.target not in index:
-            index[row.target] = len(targets)
-            targets.append(row.target)
+    pts = chart_points(result)
+    targets, x, width = pts["targets"], pts["x"], pts["width"]
+    c, r, status = pts["clearance_mm"], pts["required_mm"], pts["status"]
     n = len(targets)
     fig, ax = plt.subplots(figsize=(max(7.0, min(14.0, 0.35 * n + 3.0)), 4.2), dpi=DPI)
-    per_target: dict = {}
-    for row in result.rows:
-        per_target[row.target] = per_target.get(row.target, 0) + 1
-    slot: dict = {}
-    by_status: dict = {}
-    req_segments = []
-    unreachable = []
-    for row in result.rows:
-        k = slot.get(row.target, 0)
-        slot[row.target] = k + 1
-        width = 0.8 / per_target[row.target]
-        x = index[row.target] - 0.4 + (k + 0.5) * width  # branches side by side within the target's column
-        c = float(to_mm(row.clearance))
-        r = float(to_mm(row.required))
-        if np.isfinite(r):
-            req_segments.append(((x - 0.4 * width, r), (x + 0.4 * width, r)))
-        if not np.isfinite(c):
-            if row.status == "unreachable":
-                unreachable.append(x)
-            continue
-        by_status.setdefault(row.status, ([], []))
-        by_status[row.status][0].append(x)
-        by_status[row.status][1].append(c)
     size = 22 if len(result.rows) < 2000 else 6
-    for status in sorted(by_status, key=_sev):
-        xs, ys = by_status[status]
-        ax.scatter(xs, ys, s=size, color=status_colour(status), edgecolors="black", linewidths=0.3, label=status, zorder=3)
-    if req_segments:
-        from matplotlib.collections import LineCollection
-
-        ax.add_collection(LineCollection(req_segments, colors="black", linewidths=1.2, zorder=2))
-        ax.plot([], [], color="black", linewidth=1.2, label="required clearance")
-    if unreachable:
-        ax.scatter(unreachable, [0.0] * len(unreachable), marker="x", s=30, color=status_colour("unreachable"), label="unreachable (no branch)", zorder=3)
+    finite = np.isfinite(c)
+    statuses = sorted(set(status[finite].tolist()), key=_sev)
+    for rank, st in enumerate(statuses):
+        sel = finite & (status == st)
+        ax.scatter(x[sel], c[sel], s=size, color=status_colour(st), edgecolors="black", linewidths=0.3, label=st,
+                   zorder=3 + 0.01 * (len(statuses) - rank))  # the worst on top where markers overlap
+    has_req = np.isfinite(r)
+    if has_req.any():
+        # every bar as one line broken by NaNs (one path, not one artist per row)
+        xr, rr, hw = x[has_req], r[has_req], 0.4 * width[has_req]
+        nan = np.full(len(xr), np.nan)
+        ax.plot(np.column_stack((xr - hw, xr + hw, nan)).ravel(), np.column_stack((rr, rr, nan)).ravel(),
+                color="black", linewidth=1.2, solid_capstyle="butt", zorder=2, label="required clearance")
+    unreachable = x[~finite & (status == "unreachable")]
+    if len(unreachable):
+        ax.scatter(unreachable, np.zeros(len(unreachable)), marker="x", s=30, color=status_colour("unreachable"), label="unreachable (no branch)", zorder=3)
     ax.axhline(0.0, color=(0.3, 0.3, 0.3), linewidth=0.6)
     ax.set_xlim(-0.7, max(n, 1) - 0.3)
     if n <= 40:
@@ -436,15 +520,16 @@ def report_figures(result) -> dict:
     """``{name: PNG bytes}``: ``plan``, ``elevation-xz``, ``elevation-yz`` and ``chart``, then the
     ``motion_figures``. A result with motions and no target rows (``envelope sweep``) has only the
     motion figures."""
+    cache = FigureCache(result)
     if not result.rows and result.motions:
-        return motion_figures(result)
+        return motion_figures(result, cache=cache)
     rows = drawn_rows(result)
-    out = {view: png_bytes(view_figure(result, view, rows=rows)) for view in VIEWS}
+    out = {view: png_bytes(view_figure(result, view, rows=rows, cache=cache)) for view in VIEWS}
     out["chart"] = png_bytes(clearance_chart(result))
-    return out | motion_figures(result)
+    return out | motion_figures(result, cache=cache)
 
 
-def motion_figures(result) -> dict:
+def motion_figures(result, cache=None) -> dict:
     """``{name: PNG bytes}`` of the motions (empty without ``MotionRow`` motions): ``motion-chart`` and
     ``motion-plan``, ``motion-elevation-xz``, ``motion-elevation-yz`` (the worst configuration of each of
     the ``motions.MOTION_GLB`` worst moves, no target arms). Captions in ``MOTION_CAPTIONS``."""
@@ -455,8 +540,9 @@ def motion_figures(result) -> dict:
     out = {"motion-chart": png_bytes(motion_chart(result))}
     drawn = drawn_motions(result)
     if drawn:
+        cache = FigureCache(result) if cache is None else cache
         for view in VIEWS:
-            out[f"motion-{view}"] = png_bytes(view_figure(result, view, rows=[], motions=drawn))
+            out[f"motion-{view}"] = png_bytes(view_figure(result, view, rows=[], motions=drawn, cache=cache))
     return out
 
 

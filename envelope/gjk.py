@@ -1,0 +1,298 @@
+"""Distance and closest points of two separated convex polytopes (GJK), compiled, over a batch of poses.
+
+Gilbert, Johnson & Keerthi (1988), "A fast procedure for computing the distance between complex
+objects in three-dimensional space", IEEE J. Robotics and Automation 4(2); the closest point of a
+simplex to the origin by Voronoi regions as in Ericson (2005), *Real-Time Collision Detection*,
+sections 5.1.2 (segment), 5.1.5 (triangle) and 5.1.6 (tetrahedron), with the simplex reduced to the
+points that support the closest point.
+
+Each polytope is the convex hull of a vertex array in its own frame, posed by ``R (k, 3, 3)``,
+``t (k, 3)``. For each pose the result is the distance and a closest point on each polytope (convex
+combinations of vertices, so each lies in its polytope and their separation is an upper bound on the
+distance whatever the rounding), and a state: apart, touching or overlapping, or not settled (the
+caller asks another method for the last two). The clearance
+engine uses the points only as a direction for its certified support-function bounds, so a slightly
+unconverged answer loosens a bound, never breaks it.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+MAX_ITER = 64
+REL_TOL = 1e-12
+"""Stop when ``|v|^2 - v.w <= REL_TOL |v|^2`` (the lower bound ``v.w / |v|`` within about 5e-13 of ``|v|``)."""
+TOUCH_TOL = 1e-12
+"""m: a distance below this counts as touching."""
+SEPARATED, TOUCHING, UNSETTLED = 0, 1, 2
+"""The ``state`` of a query."""
+
+
+@njit(cache=True, nogil=True)
+def _support(V, R, t, d0, d1, d2, out):
+    """World support point of vertex set ``V`` posed by ``R``, ``t`` along world direction ``d``."""
+    l0 = R[0, 0] * d0 + R[1, 0] * d1 + R[2, 0] * d2
+    l1 = R[0, 1] * d0 + R[1, 1] * d1 + R[2, 1] * d2
+    l2 = R[0, 2] * d0 + R[1, 2] * d1 + R[2, 2] * d2
+    best, idx = -np.inf, 0
+    for i in range(V.shape[0]):
+        s = V[i, 0] * l0 + V[i, 1] * l1 + V[i, 2] * l2
+        if s > best:
+            best, idx = s, i
+    for r in range(3):
+        out[r] = R[r, 0] * V[idx, 0] + R[r, 1] * V[idx, 1] + R[r, 2] * V[idx, 2] + t[r]
+
+
+@njit(cache=True, nogil=True)
+def _dot3(a, b):
+    return a[0] * b[0] + a[1] * b[1] + a[2] * b[2]
+
+
+@njit(cache=True, nogil=True)
+def _keep(W, A, B, lam, n, idx, m, wts):
+    """Reduce the simplex to the points ``idx[:m]`` with weights ``wts[:m]``."""
+    tw = np.empty((4, 3))
+    ta = np.empty((4, 3))
+    tb = np.empty((4, 3))
+    for j in range(m):
+        for r in range(3):
+            tw[j, r] = W[idx[j], r]
+            ta[j, r] = A[idx[j], r]
+            tb[j, r] = B[idx[j], r]
+    for j in range(m):
+        for r in range(3):
+            W[j, r] = tw[j, r]
+            A[j, r] = ta[j, r]
+            B[j, r] = tb[j, r]
+        lam[j] = wts[j]
+    return m
+
+
+@njit(cache=True, nogil=True)
+def _closest_triangle(W, i0, i1, i2, idx, wts):
+    """Closest point of triangle ``W[i0] W[i1] W[i2]`` to the origin (Ericson 5.1.5, p = 0).
+
+    Returns the number of supporting points; ``idx``/``wts`` their indices and weights.
+    """
+    a, b, c = W[i0], W[i1], W[i2]
+    ab0, ab1, ab2 = b[0] - a[0], b[1] - a[1], b[2] - a[2]
+    ac0, ac1, ac2 = c[0] - a[0], c[1] - a[1], c[2] - a[2]
+    ap0, ap1, ap2 = -a[0], -a[1], -a[2]
+    d1 = ab0 * ap0 + ab1 * ap1 + ab2 * ap2
+    d2 = ac0 * ap0 + ac1 * ap1 + ac2 * ap2
+    if d1 <= 0.0 and d2 <= 0.0:
+        idx[0], wts[0] = i0, 1.0
+        return 1
+    bp0, bp1, bp2 = -b[0], -b[1], -b[2]
+    d3 = ab0 * bp0 + ab1 * bp1 + ab2 * bp2
+    d4 = ac0 * bp0 + ac1 * bp1 + ac2 * bp2
+    if d3 >= 0.0 and d4 <= d3:
+        idx[0], wts[0] = i1, 1.0
+        return 1
+    vc = d1 * d4 - d3 * d2
+    if vc <= 0.0 and d1 >= 0.0 and d3 <= 0.0:
+        v = d1 / (d1 - d3)
+        idx[0], idx[1], wts[0], wts[1] = i0, i1, 1.0 - v, v
+        return 2
+    cp0, cp1, cp2 = -c[0], -c[1], -c[2]
+    d5 = ab0 * cp0 + ab1 * cp1 + ab2 * cp2
+    d6 = ac0 * cp0 + ac1 * cp1 + ac2 * cp2
+    if d6 >= 0.0 and d5 <= d6:
+        idx[0], wts[0] = i2, 1.0
+        return 1
+    vb = d5 * d2 - d1 * d6
+    if vb <= 0.0 and d2 >= 0.0 and d6 <= 0.0:
+        w = d2 / (d2 - d6)
+        idx[0], idx[1], wts[0], wts[1] = i0, i2, 1.0 - w, w
+        return 2
+    va = d3 * d6 - d5 * d4
+    if va <= 0.0 and (d4 - d3) >= 0.0 and (d5 - d6) >= 0.0:
+        w = (d4 - d3) / ((d4 - d3) + (d5 - d6))
+        idx[0], idx[1], wts[0], wts[1] = i1, i2, 1.0 - w, w
+        return 2
+    den = va + vb + vc
+    if den == 0.0:  # degenerate (zero-area) triangle: best of its edges' ends
+        idx[0], wts[0] = i0, 1.0
+        return 1
+    v = vb / den
+    w = vc / den
+    idx[0], idx[1], idx[2], wts[0], wts[1], wts[2] = i0, i1, i2, 1.0 - v - w, v, w
+    return 3
+
+
+@njit(cache=True, nogil=True)
+def _point(W, idx, wts, m, out):
+    for r in range(3):
+        s = 0.0
+        for j in range(m):
+            s += wts[j] * W[idx[j], r]
+        out[r] = s
+
+
+@njit(cache=True, nogil=True)
+def _side(W, i0, i1, i2, i3):
+    """Signs of (origin) and (W[i3]) relative to the plane of face i0 i1 i2: their product."""
+    a, b, c, d = W[i0], W[i1], W[i2], W[i3]
+    ab0, ab1, ab2 = b[0] - a[0], b[1] - a[1], b[2] - a[2]
+    ac0, ac1, ac2 = c[0] - a[0], c[1] - a[1], c[2] - a[2]
+    n0, n1, n2 = ab1 * ac2 - ab2 * ac1, ab2 * ac0 - ab0 * ac2, ab0 * ac1 - ab1 * ac0
+    so = -(a[0] * n0 + a[1] * n1 + a[2] * n2)
+    sd = (d[0] - a[0]) * n0 + (d[1] - a[1]) * n1 + (d[2] - a[2]) * n2
+    return so * sd
+
+
+@njit(cache=True, nogil=True)
+def _reduce(W, A, B, lam, n, v):
+    """Closest point ``v`` of the simplex ``W[:n]`` to the origin; reduces the simplex to its support.
+
+    Returns the new size, or -1 if the origin is inside a tetrahedron (overlap).
+    """
+    idx = np.empty(4, np.int64)
+    wts = np.empty(4)
+    if n == 1:
+        v[0], v[1], v[2] = W[0, 0], W[0, 1], W[0, 2]
+        lam[0] = 1.0
+        return 1
+    if n == 2:
+        d0, d1, d2 = W[1, 0] - W[0, 0], W[1, 1] - W[0, 1], W[1, 2] - W[0, 2]
+        dd = d0 * d0 + d1 * d1 + d2 * d2
+        s = -(W[0, 0] * d0 + W[0, 1] * d1 + W[0, 2] * d2) / dd if dd > 0 else 0.0
+        if s <= 0.0:
+            idx[0], wts[0], m = 0, 1.0, 1
+        elif s >= 1.0:
+            idx[0], wts[0], m = 1, 1.0, 1
+        else:
+            idx[0], idx[1], wts[0], wts[1], m = 0, 1, 1.0 - s, s, 2
+        _point(W, idx, wts, m, v)
+        return _keep(W, A, B, lam, n, idx, m, wts)
+    if n == 3:
+        m = _closest_triangle(W, 0, 1, 2, idx, wts)
+        _point(W, idx, wts, m, v)
+        return _keep(W, A, B, lam, n, idx, m, wts)
+    # tetrahedron: the origin is inside if no face plane separates it from the opposite vertex; else
+    # the closest point is the nearest of the faces' closest points (all four are tried: for a nearly
+    # flat tetrahedron the plane tests cannot be trusted to pick the face)
+    faces = ((0, 1, 2, 3), (0, 1, 3, 2), (0, 2, 3, 1), (1, 2, 3, 0))
+    outside = False
+    for f in faces:
+        if _side(W, f[0], f[1], f[2], f[3]) <= 0.0:
+            outside = True
+    if not outside:
+        return -1
+    best = np.inf
+    bidx = np.empty(4, np.int64)
+    bwts = np.empty(4)
+    bm = 0
+    p = np.empty(3)
+    for f in faces:
+        if True:
+            m = _closest_triangle(W, f[0], f[1], f[2], idx, wts)
+            _point(W, idx, wts, m, p)
+            dd = p[0] * p[0] + p[1] * p[1] + p[2] * p[2]
+            if dd < best:
+                best, bm = dd, m
+                for j in range(m):
+                    bidx[j], bwts[j] = idx[j], wts[j]
+    _point(W, bidx, bwts, bm, v)
+    return _keep(W, A, B, lam, n, bidx, bm, bwts)
+
+
+@njit(cache=True, nogil=True)
+def gjk_batch(Va, Ra, ta, Vb, Rb, tb, dist, pa, pb, state):
+    """For each pose ``i``: distance between hull(Va) posed ``Ra[i], ta[i]`` and hull(Vb) posed
+    ``Rb[i], tb[i]``, closest points ``pa[i]``, ``pb[i]``, and ``state[i]``: ``SEPARATED``,
+    ``TOUCHING`` (touching or overlapping) or ``UNSETTLED``."""
+    k = Ra.shape[0]
+    W = np.empty((4, 3))
+    A = np.empty((4, 3))
+    B = np.empty((4, 3))
+    lam = np.empty(4)
+    W0, A0, B0, lam0 = np.empty((4, 3)), np.empty((4, 3)), np.empty((4, 3)), np.empty(4)
+    v = np.empty(3)
+    a = np.empty(3)
+    b = np.empty(3)
+    for i in range(k):
+        R1, t1, R2, t2 = Ra[i], ta[i], Rb[i], tb[i]
+        # start from the difference of two vertices
+        for r in range(3):
+            A[0, r] = R1[r, 0] * Va[0, 0] + R1[r, 1] * Va[0, 1] + R1[r, 2] * Va[0, 2] + t1[r]
+            B[0, r] = R2[r, 0] * Vb[0, 0] + R2[r, 1] * Vb[0, 1] + R2[r, 2] * Vb[0, 2] + t2[r]
+            W[0, r] = A[0, r] - B[0, r]
+            v[r] = W[0, r]
+        lam[0] = 1.0
+        n = 1
+        settled = False
+        inside = False
+        for _ in range(MAX_ITER):
+            vv = v[0] * v[0] + v[1] * v[1] + v[2] * v[2]
+            if vv < TOUCH_TOL * TOUCH_TOL:
+                inside = True
+                break
+            _support(Va, R1, t1, -v[0], -v[1], -v[2], a)
+            _support(Vb, R2, t2, v[0], v[1], v[2], b)
+            w0, w1, w2 = a[0] - b[0], a[1] - b[1], a[2] - b[2]
+            vw = v[0] * w0 + v[1] * w1 + v[2] * w2
+            if vv - vw <= REL_TOL * vv:
+                settled = True
+                break
+            dup = False
+            for j in range(n):
+                if W[j, 0] == w0 and W[j, 1] == w1 and W[j, 2] == w2:
+                    dup = True
+            if dup:  # no new support point: converged to rounding
+                settled = True
+                break
+            W[n, 0], W[n, 1], W[n, 2] = w0, w1, w2
+            A[n, 0], A[n, 1], A[n, 2] = a[0], a[1], a[2]
+            B[n, 0], B[n, 1], B[n, 2] = b[0], b[1], b[2]
+            for j in range(n):
+                lam0[j] = lam[j]
+                for r in range(3):
+                    W0[j, r], A0[j, r], B0[j, r] = W[j, r], A[j, r], B[j, r]
+            v0, v1, v2 = v[0], v[1], v[2]
+            n0 = n
+            n += 1
+            n_new = _reduce(W, A, B, lam, n, v)
+            if n_new < 0:
+                inside = True
+                break
+            if v[0] * v[0] + v[1] * v[1] + v[2] * v[2] >= vv:  # no progress (rounding): keep the last simplex
+                for j in range(n0):
+                    lam[j] = lam0[j]
+                    for r in range(3):
+                        W[j, r], A[j, r], B[j, r] = W0[j, r], A0[j, r], B0[j, r]
+                v[0], v[1], v[2] = v0, v1, v2
+                n = n0
+                settled = True
+                break
+            n = n_new
+        for r in range(3):
+            sa = 0.0
+            sb = 0.0
+            for j in range(n):
+                sa += lam[j] * A[j, r]
+                sb += lam[j] * B[j, r]
+            pa[i, r] = sa
+            pb[i, r] = sb
+        d0, d1, d2 = pb[i, 0] - pa[i, 0], pb[i, 1] - pa[i, 1], pb[i, 2] - pa[i, 2]
+        dist[i] = math.sqrt(d0 * d0 + d1 * d1 + d2 * d2)
+        if inside or dist[i] <= TOUCH_TOL:
+            state[i] = TOUCHING
+        elif settled:
+            state[i] = SEPARATED
+        else:
+            state[i] = UNSETTLED
+
+
+def distance(Va, Ra, ta, Vb, Rb, tb):
+    """``(dist (k,), pa (k, 3), pb (k, 3), state (k,))`` for vertex arrays and pose stacks (see module doc)."""
+    Ra, Rb = np.ascontiguousarray(Ra, dtype=np.float64), np.ascontiguousarray(Rb, dtype=np.float64)
+    ta, tb = np.ascontiguousarray(ta, dtype=np.float64), np.ascontiguousarray(tb, dtype=np.float64)
+    k = len(Ra)
+    dist, pa, pb, state = np.empty(k), np.empty((k, 3)), np.empty((k, 3)), np.empty(k, dtype=np.int8)
+    gjk_batch(np.ascontiguousarray(Va, dtype=np.float64), Ra, ta, np.ascontiguousarray(Vb, dtype=np.float64),
+              Rb, tb, dist, pa, pb, state)
+    return dist, pa, pb, state
