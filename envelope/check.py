@@ -16,9 +16,11 @@ Singularity is a flag on a row (``singular``), not a status.
 
 from __future__ import annotations
 
+import math
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -115,15 +117,18 @@ class CheckResult:
     axis limits) when it was run, else None."""
 
     def worst_first(self) -> list:
-        """Row indices sorted worst first: by status severity, then by margin."""
-        return sorted(
-            range(len(self.rows)),
-            key=lambda i: (
-                STATUS_SEVERITY[self.rows[i].status],
-                np.inf if np.isnan(self.rows[i].margin) else self.rows[i].margin,
-                i,
-            ),
-        )
+        """Row indices sorted worst first: by status severity, then by margin (then row order)."""
+        return list(self._worst_order)
+
+    @cached_property
+    def _worst_order(self) -> tuple:
+        n = len(self.rows)
+        if n == 0:
+            return ()
+        severity = np.fromiter((STATUS_SEVERITY[r.status] for r in self.rows), dtype=np.int64, count=n)
+        margin = np.fromiter((r.margin for r in self.rows), dtype=np.float64, count=n)
+        margin = np.where(np.isnan(margin), np.inf, margin)
+        return tuple(np.lexsort((np.arange(n), margin, severity)).tolist())
 
     @property
     def exit_code(self) -> int:
@@ -198,21 +203,29 @@ class PairRows(Sequence):
 def _joint_note(q, limits) -> str:
     """'joint 4 above its range by 12.300 deg; ...' for the joints of ``q`` outside ``limits``."""
     parts = []
-    for j, (v, (lo, hi)) in enumerate(zip(q, limits)):
+    for j, (v, (lo, hi)) in enumerate(zip(np.asarray(q).tolist(), np.asarray(limits).tolist())):
         if v > hi:
-            parts.append(f"joint {j + 1} above its range by {np.degrees(v - hi):.3f} deg")
+            parts.append(f"joint {j + 1} above its range by {math.degrees(v - hi):.3f} deg")
         elif v < lo:
-            parts.append(f"joint {j + 1} below its range by {np.degrees(lo - v):.3f} deg")
+            parts.append(f"joint {j + 1} below its range by {math.degrees(lo - v):.3f} deg")
     return "; ".join(parts)
 
 
+_SINGULAR_NAMES = ("wrist", "shoulder", "elbow")
+
+
 def _singular_flags(sol, k) -> tuple:
-    names = ("wrist", "shoulder", "elbow")
     flags = (sol.singular_wrist[k], sol.singular_shoulder[k], sol.singular_elbow[k])
-    return tuple(n for n, f in zip(names, flags) if f)
+    return tuple(n for n, f in zip(_SINGULAR_NAMES, flags) if f)
 
 
-def _evaluate(cell, q, *, jobs, progress, prune, chunk=256):
+def _all_singular_flags(sol) -> list:
+    """``[_singular_flags(sol, k) for k in range(len(sol))]``, the flags read once per pose."""
+    cols = zip(sol.singular_wrist.tolist(), sol.singular_shoulder.tolist(), sol.singular_elbow.tolist())
+    return [tuple(n for n, f in zip(_SINGULAR_NAMES, fl) if f) for fl in cols]
+
+
+def _evaluate(cell, q, *, jobs, progress, prune, chunk=1024):
     """Clearance of configurations ``q (n, 6)``, in chunks, in this process or ``jobs`` workers.
 
     Every configuration is evaluated on its own, so the split into chunks and processes does not
@@ -329,6 +342,8 @@ def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True, p
             continue
         first_row = {}
         turns = {}
+        within_all = sol.within_limits.all(axis=1).tolist()
+        singular_all = _all_singular_flags(sol)
         for k in branch_order(sol):
             rep = int(sol.twin[k])
             res = clearance._index(index_of[(t, rep)])
@@ -351,11 +366,11 @@ def run_check(cell: Cell, *, jobs: int = 1, progress=None, prune: bool = True, p
                 closest_body = closest_other = ""
                 wb = wo = nan3
                 notes.append("no pair to check")
-            within = bool(sol.within_limits[k].all())
+            within = within_all[k]
             status = clearance_status if within else OUTSIDE_LIMITS
             if not within:
                 notes.append(_joint_note(sol.q[k], cell.arm.limits))
-            singular = _singular_flags(sol, k)
+            singular = singular_all[k]
             if "wrist" in singular:
                 notes.append("wrist singular: only q4 + q6 is fixed, one representative shown")
             if rep != k:

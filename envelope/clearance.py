@@ -769,6 +769,16 @@ class ClearanceEngine:
         res = (parts[0] if len(parts) == 1 else ClearanceResult.concatenate(parts)) if parts else self._evaluate_block(q2)
         return res._index(0) if q.ndim == 1 else res
 
+    def worst_margins(self, q) -> tuple[np.ndarray, np.ndarray]:
+        """``(worst_margin (n,), overall (n,))`` of ``evaluate(q)`` for a batch ``(n, 6)``, keeping only
+        these per block (no per-pair arrays for the whole batch: what a map needs)."""
+        q2 = np.atleast_2d(self._q(q))
+        margin, overall = np.empty(len(q2)), np.empty(len(q2), dtype=np.int8)
+        for i in range(0, len(q2), _BLOCK):
+            part = self._evaluate_block(q2[i:i + _BLOCK])
+            margin[i:i + _BLOCK], overall[i:i + _BLOCK] = part.worst_margin, part.overall
+        return margin, overall
+
     def evaluate_parallel(self, q, *, processes: int = 2, chunk_size: int | None = None) -> ClearanceResult:
         """``evaluate(q)`` for a batch ``(n, 6)``, fanned out over worker processes.
 

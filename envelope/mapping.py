@@ -423,9 +423,9 @@ def evaluate_chunk(cell, grid: MapGrid, start: int, stop: int, *, method: str = 
             margin[ok] = lo
             clear[ok] = cl
         else:
-            res = engine.evaluate(ik.q[ok])
-            margin[ok] = res.worst_margin
-            clear[ok] = res.overall == STATUS_CLEAR
+            worst, overall = engine.worst_margins(ik.q[ok])
+            margin[ok] = worst
+            clear[ok] = overall == STATUS_CLEAR
     n_within = ok.sum(axis=1)
     best = np.where(n_within > 0, margin.max(axis=1), np.nan)
     return ChunkResult(
