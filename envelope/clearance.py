@@ -422,8 +422,9 @@ def _separation_batch(A, B, Ra, ta, Rb, tb, fallback):
     poses ``Ra, ta, Rb, tb`` (``(k, 3, 3)``, ``(k, 3)``; ignored for a zone slot, whose shape is in
     world coordinates).
 
-    Two polytopes (hulls, boxes) go to the compiled GJK (``envelope.gjk``) where they are apart;
-    ``fallback(js, contact)`` supplies python-fcl's answer for the rest as ``(d (m,), pts (m, 2, 3))``
+    Two polytopes (hulls, boxes) go to the compiled GJK (``envelope.gjk``) where they are apart and
+    to its EPA where they overlap (the deepest point of the first along the penetration direction,
+    and that point moved back by the depth); ``fallback(js, contact)`` supplies python-fcl's answer for the rest as ``(d (m,), pts (m, 2, 3))``
     (``contact``: GJK found them touching or overlapping, so the plain distance query can be
     skipped). Either way only the direction of the points is used for the certified bounds.
     """
@@ -439,6 +440,12 @@ def _separation_batch(A, B, Ra, ta, Rb, tb, fallback):
     dg, ga, gb, state = gjk.distance(A.verts, RA, TA, B.verts, RB, TB)
     ok = state == gjk.SEPARATED
     d[ok], pa[ok], pb[ok] = dg[ok], ga[ok], gb[ok]
+    touch = np.flatnonzero(state == gjk.TOUCHING)
+    if touch.size:  # overlapping: the penetration direction by EPA (its depth as a negative distance)
+        depth, ea, eb, found = gjk.penetration(A.verts, RA[touch], TA[touch], B.verts, RB[touch], TB[touch])
+        got = touch[found]
+        d[got], pa[got], pb[got] = -depth[found], ea[found], eb[found]
+        state[got] = gjk.SEPARATED  # done
     for which, contact in ((gjk.TOUCHING, True), (gjk.UNSETTLED, False)):
         todo = np.flatnonzero(state == which)
         if todo.size:

@@ -27,23 +27,20 @@ REL_TOL = 1e-12
 """Stop when ``|v|^2 - v.w <= REL_TOL |v|^2`` (the lower bound ``v.w / |v|`` within about 5e-13 of ``|v|``)."""
 TOUCH_TOL = 1e-12
 """m: a distance below this counts as touching."""
-SEPARATED, TOUCHING, UNSETTLED = 0, 1, 2
-"""The ``state`` of a query."""
+SEPARATED, TOUCHING, UNSETTLED, ABOVE = 0, 1, 2, 3
+"""The ``state`` of a query (``ABOVE``: stopped early, the distance is at least the returned value,
+which is at least the ``stop_above`` asked for)."""
 
 
 @njit(cache=True, nogil=True)
-def _support(V, R, t, d0, d1, d2, out):
-    """World support point of vertex set ``V`` posed by ``R``, ``t`` along world direction ``d``."""
-    l0 = R[0, 0] * d0 + R[1, 0] * d1 + R[2, 0] * d2
-    l1 = R[0, 1] * d0 + R[1, 1] * d1 + R[2, 1] * d2
-    l2 = R[0, 2] * d0 + R[1, 2] * d1 + R[2, 2] * d2
+def _support(P, d0, d1, d2, out):
+    """Support point of the point set ``P (m, 3)`` (world) along direction ``d``."""
     best, idx = -np.inf, 0
-    for i in range(V.shape[0]):
-        s = V[i, 0] * l0 + V[i, 1] * l1 + V[i, 2] * l2
+    for i in range(P.shape[0]):
+        s = P[i, 0] * d0 + P[i, 1] * d1 + P[i, 2] * d2
         if s > best:
             best, idx = s, i
-    for r in range(3):
-        out[r] = R[r, 0] * V[idx, 0] + R[r, 1] * V[idx, 1] + R[r, 2] * V[idx, 2] + t[r]
+    out[0], out[1], out[2] = P[idx, 0], P[idx, 1], P[idx, 2]
 
 
 @njit(cache=True, nogil=True)
@@ -201,12 +198,15 @@ def _reduce(W, A, B, lam, n, v):
 
 
 @njit(cache=True, nogil=True)
-def gjk_batch(Va, Ra, ta, Vb, Rb, tb, dist, pa, pb, state):
-    """For each pose ``i``: distance between hull(Va) posed ``Ra[i], ta[i]`` and hull(Vb) posed
-    ``Rb[i], tb[i]``, closest points ``pa[i]``, ``pb[i]``, and ``state[i]``: ``SEPARATED``,
-    ``TOUCHING`` (touching or overlapping) or ``UNSETTLED``."""
-    k = Ra.shape[0]
-    W = np.empty((4, 3))
+def gjk_points(PA, PB, pa, pb, W, stop_above=np.inf):
+    """Distance between the convex hulls of world point sets ``PA (na, 3)`` and ``PB (nb, 3)``.
+
+    Writes the closest points into ``pa``, ``pb`` (``(3,)``) and returns ``(distance, state)``.
+    ``W (4, 3)`` is scratch; when the state is ``TOUCHING`` because the origin lies inside a
+    tetrahedron of the difference, it holds that tetrahedron (a start for ``penetration_bound``) and
+    ``W[0, 0]`` is finite, else ``W[0, 0]`` is NaN. With ``stop_above`` finite the iteration stops as
+    soon as its certified lower bound ``v.w / |v|`` reaches it (state ``ABOVE``, that bound returned).
+    """
     A = np.empty((4, 3))
     B = np.empty((4, 3))
     lam = np.empty(4)
@@ -214,77 +214,99 @@ def gjk_batch(Va, Ra, ta, Vb, Rb, tb, dist, pa, pb, state):
     v = np.empty(3)
     a = np.empty(3)
     b = np.empty(3)
-    for i in range(k):
-        R1, t1, R2, t2 = Ra[i], ta[i], Rb[i], tb[i]
-        # start from the difference of two vertices
-        for r in range(3):
-            A[0, r] = R1[r, 0] * Va[0, 0] + R1[r, 1] * Va[0, 1] + R1[r, 2] * Va[0, 2] + t1[r]
-            B[0, r] = R2[r, 0] * Vb[0, 0] + R2[r, 1] * Vb[0, 1] + R2[r, 2] * Vb[0, 2] + t2[r]
-            W[0, r] = A[0, r] - B[0, r]
-            v[r] = W[0, r]
-        lam[0] = 1.0
-        n = 1
-        settled = False
-        inside = False
-        for _ in range(MAX_ITER):
-            vv = v[0] * v[0] + v[1] * v[1] + v[2] * v[2]
-            if vv < TOUCH_TOL * TOUCH_TOL:
-                inside = True
-                break
-            _support(Va, R1, t1, -v[0], -v[1], -v[2], a)
-            _support(Vb, R2, t2, v[0], v[1], v[2], b)
-            w0, w1, w2 = a[0] - b[0], a[1] - b[1], a[2] - b[2]
-            vw = v[0] * w0 + v[1] * w1 + v[2] * w2
-            if vv - vw <= REL_TOL * vv:
-                settled = True
-                break
-            dup = False
-            for j in range(n):
-                if W[j, 0] == w0 and W[j, 1] == w1 and W[j, 2] == w2:
-                    dup = True
-            if dup:  # no new support point: converged to rounding
-                settled = True
-                break
-            W[n, 0], W[n, 1], W[n, 2] = w0, w1, w2
-            A[n, 0], A[n, 1], A[n, 2] = a[0], a[1], a[2]
-            B[n, 0], B[n, 1], B[n, 2] = b[0], b[1], b[2]
-            for j in range(n):
-                lam0[j] = lam[j]
+    for r in range(3):  # start from the difference of two vertices
+        A[0, r], B[0, r] = PA[0, r], PB[0, r]
+        W[0, r] = A[0, r] - B[0, r]
+        v[r] = W[0, r]
+    lam[0] = 1.0
+    n = 1
+    settled = False
+    inside = False
+    enclosed = False
+    for _ in range(MAX_ITER):
+        vv = v[0] * v[0] + v[1] * v[1] + v[2] * v[2]
+        if vv < TOUCH_TOL * TOUCH_TOL:
+            inside = True
+            break
+        _support(PA, -v[0], -v[1], -v[2], a)
+        _support(PB, v[0], v[1], v[2], b)
+        w0, w1, w2 = a[0] - b[0], a[1] - b[1], a[2] - b[2]
+        vw = v[0] * w0 + v[1] * w1 + v[2] * w2
+        if vv - vw <= REL_TOL * vv:
+            settled = True
+            break
+        if vw > 0.0 and vw >= stop_above * math.sqrt(vv):
+            W[0, 0] = np.nan
+            return vw / math.sqrt(vv), ABOVE
+        dup = False
+        for j in range(n):
+            if W[j, 0] == w0 and W[j, 1] == w1 and W[j, 2] == w2:
+                dup = True
+        if dup:  # no new support point: converged to rounding
+            settled = True
+            break
+        for j in range(n):
+            lam0[j] = lam[j]
+            for r in range(3):
+                W0[j, r], A0[j, r], B0[j, r] = W[j, r], A[j, r], B[j, r]
+        v0, v1, v2 = v[0], v[1], v[2]
+        n0 = n
+        W[n, 0], W[n, 1], W[n, 2] = w0, w1, w2
+        A[n, 0], A[n, 1], A[n, 2] = a[0], a[1], a[2]
+        B[n, 0], B[n, 1], B[n, 2] = b[0], b[1], b[2]
+        n += 1
+        n_new = _reduce(W, A, B, lam, n, v)
+        if n_new < 0:
+            inside = True
+            enclosed = True
+            break
+        if v[0] * v[0] + v[1] * v[1] + v[2] * v[2] >= vv:  # no progress (rounding): keep the last simplex
+            for j in range(n0):
+                lam[j] = lam0[j]
                 for r in range(3):
-                    W0[j, r], A0[j, r], B0[j, r] = W[j, r], A[j, r], B[j, r]
-            v0, v1, v2 = v[0], v[1], v[2]
-            n0 = n
-            n += 1
-            n_new = _reduce(W, A, B, lam, n, v)
-            if n_new < 0:
-                inside = True
-                break
-            if v[0] * v[0] + v[1] * v[1] + v[2] * v[2] >= vv:  # no progress (rounding): keep the last simplex
-                for j in range(n0):
-                    lam[j] = lam0[j]
-                    for r in range(3):
-                        W[j, r], A[j, r], B[j, r] = W0[j, r], A0[j, r], B0[j, r]
-                v[0], v[1], v[2] = v0, v1, v2
-                n = n0
-                settled = True
-                break
-            n = n_new
+                    W[j, r], A[j, r], B[j, r] = W0[j, r], A0[j, r], B0[j, r]
+            v[0], v[1], v[2] = v0, v1, v2
+            n = n0
+            settled = True
+            break
+        n = n_new
+    for r in range(3):
+        sa = 0.0
+        sb = 0.0
+        for j in range(n):
+            sa += lam[j] * A[j, r]
+            sb += lam[j] * B[j, r]
+        pa[r] = sa
+        pb[r] = sb
+    d0, d1, d2 = pb[0] - pa[0], pb[1] - pa[1], pb[2] - pa[2]
+    dist = math.sqrt(d0 * d0 + d1 * d1 + d2 * d2)
+    if not enclosed:
+        W[0, 0] = np.nan
+    if inside or dist <= TOUCH_TOL:
+        return dist, TOUCHING
+    return dist, SEPARATED if settled else UNSETTLED
+
+
+@njit(cache=True, nogil=True)
+def pose_points(V, R, t, out):
+    """``out[:len(V)] = V @ R.T + t``."""
+    for i in range(V.shape[0]):
         for r in range(3):
-            sa = 0.0
-            sb = 0.0
-            for j in range(n):
-                sa += lam[j] * A[j, r]
-                sb += lam[j] * B[j, r]
-            pa[i, r] = sa
-            pb[i, r] = sb
-        d0, d1, d2 = pb[i, 0] - pa[i, 0], pb[i, 1] - pa[i, 1], pb[i, 2] - pa[i, 2]
-        dist[i] = math.sqrt(d0 * d0 + d1 * d1 + d2 * d2)
-        if inside or dist[i] <= TOUCH_TOL:
-            state[i] = TOUCHING
-        elif settled:
-            state[i] = SEPARATED
-        else:
-            state[i] = UNSETTLED
+            out[i, r] = R[r, 0] * V[i, 0] + R[r, 1] * V[i, 1] + R[r, 2] * V[i, 2] + t[r]
+
+
+@njit(cache=True, nogil=True)
+def gjk_batch(Va, Ra, ta, Vb, Rb, tb, dist, pa, pb, state):
+    """For each pose ``i``: distance between hull(Va) posed ``Ra[i], ta[i]`` and hull(Vb) posed
+    ``Rb[i], tb[i]``, closest points ``pa[i]``, ``pb[i]``, and ``state[i]``: ``SEPARATED``,
+    ``TOUCHING`` (touching or overlapping) or ``UNSETTLED``."""
+    PA = np.empty(Va.shape)
+    PB = np.empty(Vb.shape)
+    W = np.empty((4, 3))
+    for i in range(Ra.shape[0]):
+        pose_points(Va, Ra[i], ta[i], PA)
+        pose_points(Vb, Rb[i], tb[i], PB)
+        dist[i], state[i] = gjk_points(PA, PB, pa[i], pb[i], W)
 
 
 def distance(Va, Ra, ta, Vb, Rb, tb):
@@ -296,3 +318,162 @@ def distance(Va, Ra, ta, Vb, Rb, tb):
     gjk_batch(np.ascontiguousarray(Va, dtype=np.float64), Ra, ta, np.ascontiguousarray(Vb, dtype=np.float64),
               Rb, tb, dist, pa, pb, state)
     return dist, pa, pb, state
+
+
+EPA_MAX_FACES = 512
+EPA_MAX_ITER = 96
+EPA_TOL = 1e-9
+"""m: EPA stops when the support along the nearest face's normal is within this of the face."""
+
+
+@njit(cache=True, nogil=True)
+def _support_diff(PA, PB, n0, n1, n2, out, a, b):
+    """Support point of hull(PA) - hull(PB) along ``n``."""
+    _support(PA, n0, n1, n2, a)
+    _support(PB, -n0, -n1, -n2, b)
+    out[0], out[1], out[2] = a[0] - b[0], a[1] - b[1], a[2] - b[2]
+
+
+@njit(cache=True, nogil=True)
+def _face(P, i, j, k, F, N, D, f):
+    """Face ``f`` = (i, j, k) with its unit normal and offset; False if degenerate."""
+    a0, a1, a2 = P[j, 0] - P[i, 0], P[j, 1] - P[i, 1], P[j, 2] - P[i, 2]
+    b0, b1, b2 = P[k, 0] - P[i, 0], P[k, 1] - P[i, 1], P[k, 2] - P[i, 2]
+    n0, n1, n2 = a1 * b2 - a2 * b1, a2 * b0 - a0 * b2, a0 * b1 - a1 * b0
+    nn = math.sqrt(n0 * n0 + n1 * n1 + n2 * n2)
+    if nn < 1e-300:
+        return False
+    F[f, 0], F[f, 1], F[f, 2] = i, j, k
+    N[f, 0], N[f, 1], N[f, 2] = n0 / nn, n1 / nn, n2 / nn
+    D[f] = N[f, 0] * P[i, 0] + N[f, 1] * P[i, 1] + N[f, 2] * P[i, 2]
+    return True
+
+
+@njit(cache=True, nogil=True)
+def penetration_bound(PA, PB, S, nrm):
+    """Certified lower bound on the signed distance of two overlapping polytopes (<= -depth).
+
+    The expanding polytope algorithm (van den Bergen 2001, "Proximity queries and penetration depth
+    computation on 3D game objects", GDC) on hull(PA) - hull(PB), started from the tetrahedron ``S
+    (4, 3)`` of the difference that encloses the origin (GJK's last simplex); the value returned is the support gap along the final
+    face normal, ``-h(n)``, which is a lower bound on the signed distance whatever the iteration did.
+    Returns ``(bound, upper, ok)``: the signed distance lies in ``[bound, upper]`` (``upper`` is minus
+    the nearest face's distance: the expanded polytope lies inside the difference); ``ok`` is False
+    when the start did not enclose the origin (the caller asks another method). ``nrm (3,)`` receives
+    the direction whose gap is ``bound``.
+    """
+    P = np.empty((EPA_MAX_ITER + 4, 3))
+    F = np.empty((EPA_MAX_FACES, 3), np.int64)
+    N = np.empty((EPA_MAX_FACES, 3))
+    D = np.empty(EPA_MAX_FACES)
+    alive = np.zeros(EPA_MAX_FACES, np.bool_)
+    a = np.empty(3)
+    b = np.empty(3)
+    w = np.empty(3)
+    if not np.isfinite(S[0, 0]):
+        return 0.0, 0.0, False
+    for k in range(4):
+        P[k, 0], P[k, 1], P[k, 2] = S[k, 0], S[k, 1], S[k, 2]
+    np_ = 4
+    c0 = (P[0, 0] + P[1, 0] + P[2, 0] + P[3, 0]) / 4
+    c1 = (P[0, 1] + P[1, 1] + P[2, 1] + P[3, 1]) / 4
+    c2 = (P[0, 2] + P[1, 2] + P[2, 2] + P[3, 2]) / 4
+    nf = 0
+    for (i, j, k) in ((0, 1, 2), (0, 3, 1), (0, 2, 3), (1, 3, 2)):
+        if not _face(P, i, j, k, F, N, D, nf):
+            return 0.0, 0.0, False
+        # orient outwards (away from the tetrahedron's centroid)
+        if N[nf, 0] * (P[i, 0] - c0) + N[nf, 1] * (P[i, 1] - c1) + N[nf, 2] * (P[i, 2] - c2) < 0:
+            _face(P, i, k, j, F, N, D, nf)
+        if D[nf] < -1e-12:  # the origin is outside this face: the start does not enclose it
+            return 0.0, 0.0, False
+        alive[nf] = True
+        nf += 1
+    best_bound = -np.inf
+    last = 0.0
+    edges = np.empty((3 * EPA_MAX_FACES, 2), np.int64)
+    for _ in range(EPA_MAX_ITER):
+        f, dmin = -1, np.inf
+        for g in range(nf):
+            if alive[g] and D[g] < dmin:
+                f, dmin = g, D[g]
+        if f < 0:
+            return best_bound, 0.0, False
+        n0, n1, n2 = N[f, 0], N[f, 1], N[f, 2]
+        _support_diff(PA, PB, n0, n1, n2, w, a, b)
+        h = w[0] * n0 + w[1] * n1 + w[2] * n2
+        if -h > best_bound:  # gap along n: a certified lower bound on the signed distance
+            best_bound = -h
+            nrm[0], nrm[1], nrm[2] = n0, n1, n2
+        if h - dmin <= EPA_TOL or np_ >= P.shape[0]:
+            return best_bound, -dmin, True
+        P[np_, 0], P[np_, 1], P[np_, 2] = w[0], w[1], w[2]
+        # remove the faces the new point sees; the horizon is their edges not shared between two of them
+        ne = 0
+        for g in range(nf):
+            if alive[g]:
+                i0 = F[g, 0]
+                if N[g, 0] * (w[0] - P[i0, 0]) + N[g, 1] * (w[1] - P[i0, 1]) + N[g, 2] * (w[2] - P[i0, 2]) > 0.0:
+                    alive[g] = False
+                    for (u, v) in ((F[g, 0], F[g, 1]), (F[g, 1], F[g, 2]), (F[g, 2], F[g, 0])):
+                        shared = -1
+                        for e in range(ne):
+                            if edges[e, 0] == v and edges[e, 1] == u:
+                                shared = e
+                        if shared >= 0:
+                            edges[shared, 0], edges[shared, 1] = edges[ne - 1, 0], edges[ne - 1, 1]
+                            ne -= 1
+                        else:
+                            edges[ne, 0], edges[ne, 1] = u, v
+                            ne += 1
+        if nf + ne > EPA_MAX_FACES:
+            return best_bound, -dmin, True
+        for e in range(ne):
+            if not _face(P, edges[e, 0], edges[e, 1], np_, F, N, D, nf):
+                continue
+            alive[nf] = True
+            nf += 1
+        np_ += 1
+        last = -dmin
+    return best_bound, last, True
+
+
+@njit(cache=True, nogil=True)
+def penetration_batch(Va, Ra, ta, Vb, Rb, tb, depth, pa, pb, ok):
+    """For each pose ``i`` where the posed hulls overlap: ``depth[i]`` (>= the penetration depth: minus
+    a certified lower bound on the signed distance), ``pa[i]`` the deepest point of A along the
+    separating direction ``n`` and ``pb[i] = pa[i] - depth[i] n``; ``ok[i]`` False where they do not
+    overlap or EPA could not start."""
+    PA = np.empty(Va.shape)
+    PB = np.empty(Vb.shape)
+    W = np.empty((4, 3))
+    a = np.empty(3)
+    b = np.empty(3)
+    nrm = np.empty(3)
+    for i in range(Ra.shape[0]):
+        pose_points(Va, Ra[i], ta[i], PA)
+        pose_points(Vb, Rb[i], tb[i], PB)
+        _, state = gjk_points(PA, PB, a, b, W)
+        ok[i] = False
+        if state != TOUCHING:
+            continue
+        bound, _, found = penetration_bound(PA, PB, W, nrm)
+        if not found:
+            continue
+        _support(PA, nrm[0], nrm[1], nrm[2], a)
+        depth[i] = max(-bound, 0.0)
+        for r in range(3):
+            pa[i, r] = a[r]
+            pb[i, r] = a[r] - depth[i] * nrm[r]
+        ok[i] = True
+
+
+def penetration(Va, Ra, ta, Vb, Rb, tb):
+    """``(depth (k,), pa (k, 3), pb (k, 3), ok (k,))`` for vertex arrays and pose stacks (see ``penetration_batch``)."""
+    Ra, Rb = np.ascontiguousarray(Ra, dtype=np.float64), np.ascontiguousarray(Rb, dtype=np.float64)
+    ta, tb = np.ascontiguousarray(ta, dtype=np.float64), np.ascontiguousarray(tb, dtype=np.float64)
+    k = len(Ra)
+    depth, pa, pb, ok = np.zeros(k), np.empty((k, 3)), np.empty((k, 3)), np.empty(k, dtype=bool)
+    penetration_batch(np.ascontiguousarray(Va, dtype=np.float64), Ra, ta, np.ascontiguousarray(Vb, dtype=np.float64),
+                      Rb, tb, depth, pa, pb, ok)
+    return depth, pa, pb, ok

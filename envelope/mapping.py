@@ -23,8 +23,9 @@ Geometry (python-fcl objects do not pickle) is built once per process: ``_engine
 ``ClearanceEngine`` per cell fingerprint (a SHA-256 of the cell's geometry and limits), so a Dask
 worker that receives a fresh copy of the cell with every task still builds it only once.
 
-Two methods (docs/maps.md): ``"exact"`` (default) runs the clearance engine on every within-limits
-branch; ``"fast"`` first brackets every branch's worst margin with vectorised bounds
+Two methods (docs/maps.md): ``"exact"`` (default) gives every within-limits branch the clearance
+engine's worst margin and status (compiled, ``envelope.margins``, for cells of polytopes, half-spaces
+and zone meshes); ``"fast"`` first brackets every branch's worst margin with vectorised bounds
 (``FastBounds``) and runs the engine only where they cannot decide the verdict or the pose's best
 margin to 0.5 mm.
 """
@@ -391,13 +392,43 @@ def _fast(cell, key, engine):
     return fb
 
 
+_COMPILED: dict = {}
+
+
+def _compiled(cell, key, engine):
+    """The cell's ``CompiledMargins`` (None when its shapes need the engine), one per process."""
+    from .margins import CompiledMargins
+
+    key = key or cell_fingerprint(cell)
+    if key not in _COMPILED:
+        if len(_COMPILED) >= 4:
+            _COMPILED.pop(next(iter(_COMPILED)))
+        _COMPILED[key] = CompiledMargins.build(engine)
+    return _COMPILED[key]
+
+
+def _exact_margins(cell, key, engine, q):
+    """``(worst_margin, overall, n_engine)`` of configurations ``q``: the compiled loop where the cell
+    allows it (``envelope.margins``), the engine for the configurations it flags and for other cells."""
+    cm = _compiled(cell, key, engine)
+    if cm is None:
+        worst, overall = engine.worst_margins(q)
+        return worst, overall, len(q)
+    worst, overall, approx = cm.worst_margins(q)
+    if approx.any():
+        worst[approx], overall[approx] = engine.worst_margins(q[approx])
+    return worst, overall, int(approx.sum())
+
+
 def evaluate_chunk(cell, grid: MapGrid, start: int, stop: int, *, method: str = "exact",
                    cell_key: str | None = None) -> ChunkResult:
     """Map results of the grid poses with flat indices ``start..stop-1`` (a pure function).
 
     Every existing branch is solved (batch closed-form IK). With ``method="exact"`` every
-    within-limits branch is evaluated with the clearance engine (``ClearanceEngine(cell,
-    prune=True)``, whose pruning never changes a status nor the worst pair). With ``"fast"``,
+    within-limits branch gets the clearance engine's worst margin and status (``ClearanceEngine(cell,
+    prune=True)``, whose pruning never changes a status nor the worst pair), computed by the
+    compiled loop of ``envelope.margins`` where the cell's shapes allow it (the engine's values to
+    about 1e-6 m; ``n_engine`` counts the configurations left to the engine). With ``"fast"``,
     ``FastBounds`` brackets each branch's worst margin and only branches it cannot decide (the
     verdict, or the pose's best margin to ``FAST_TOL``) go to the engine; the verdicts are the
     engine's and the best margin is within ``FAST_TOL`` below the engine's. ``cell_key`` (the cell
@@ -423,7 +454,7 @@ def evaluate_chunk(cell, grid: MapGrid, start: int, stop: int, *, method: str = 
             margin[ok] = lo
             clear[ok] = cl
         else:
-            worst, overall = engine.worst_margins(ik.q[ok])
+            worst, overall, n_engine = _exact_margins(cell, cell_key, engine, ik.q[ok])
             margin[ok] = worst
             clear[ok] = overall == STATUS_CLEAR
     n_within = ok.sum(axis=1)
