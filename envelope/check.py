@@ -149,6 +149,10 @@ class CheckResult:
         shown but are not findings. A motion that is not clear is a finding, and so is each failing
         fence panel, crushing point or protective device of the space check (``space``).
         """
+        return list(self._findings)
+
+    @cached_property
+    def _findings(self) -> tuple:
         out = []
         by_target: dict = {}
         for row in self.rows:
@@ -161,7 +165,7 @@ class CheckResult:
         out.extend(m.status for m in self.motions if m.status != CLEAR)
         if self.space is not None:
             out.extend(self.space.findings())
-        return out
+        return tuple(out)
 
 
 class PairRows(Sequence):

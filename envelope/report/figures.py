@@ -137,6 +137,18 @@ class FigureCache:
         """(n_targets, 3) m: every target's TCP in the cell frame, in ``cell.targets`` order."""
         self._meshes: dict = {}
         self._extents: dict = {}
+        self._by_status = None
+
+    def targets_by_status(self) -> dict:
+        """``{status: indices into cell.targets}``: the targets (with rows) grouped by their worst status."""
+        if self._by_status is None:
+            out: dict = {}
+            for k, t in enumerate(self.result.cell.targets):
+                status = self.worst_status.get(t.name)
+                if status is not None:
+                    out.setdefault(status, []).append(k)
+            self._by_status = out
+        return self._by_status
 
     def mesh(self, shape, extent=None, padding: float = 0.0):
         """``(vertices (n, 3) m, faces or None)`` of ``scene.shape_mesh(shape, extent=, padding=)`` in the
@@ -173,6 +185,12 @@ class FigureCache:
         return self._extents[key]
 
 
+def _add_patch(ax, patch) -> None:
+    """``ax.add_patch`` without widening the data limits (slow for many outlines): the views set their
+    limits themselves."""
+    ax.add_artist(patch)
+
+
 def _draw_shape(ax, shape, world_from_parent, axes, extent, padding, *, face, edge, lw, z, cache, label=None):
     vertices, faces = cache.mesh(shape, extent, padding)
     world = to_mm(transform_points(vertices, world_from_parent))
@@ -186,11 +204,11 @@ def _draw_shape(ax, shape, world_from_parent, axes, extent, padding, *, face, ed
         ax.add_collection(PolyCollection(tris, facecolors=[solid], edgecolors="none", antialiaseds=False, zorder=z - 0.5))
         poly = _silhouette(pts)
         if poly is not None:
-            ax.add_patch(Polygon(poly, closed=True, fill=False, edgecolor=edge, linewidth=lw, linestyle=":", zorder=z))
+            _add_patch(ax, Polygon(poly, closed=True, fill=False, edgecolor=edge, linewidth=lw, linestyle=":", zorder=z))
         return
     poly = _silhouette(pts)
     if poly is not None:
-        ax.add_patch(Polygon(poly, closed=True, facecolor=face, edgecolor=edge, linewidth=lw, zorder=z, label=label))
+        _add_patch(ax, Polygon(poly, closed=True, facecolor=face, edgecolor=edge, linewidth=lw, zorder=z, label=label))
 
 
 def view_figure(result, view: str = "plan", *, rows=None, motions=(), cache=None):
@@ -274,13 +292,11 @@ def view_figure(result, view: str = "plan", *, rows=None, motions=(), cache=None
         _draw_motion_arm(ax, result, i, k, axes, extent, cache)
 
     # every target's TCP, coloured by the worst status among its rows
+    # (one collection per status, the more severe drawn on top where dots overlap)
     worst = cache.worst_status if rows or not motions else {}  # a motions-only view leaves the target dots out
-    if worst:
-        keep = [k for k, t in enumerate(cell.targets) if t.name in worst]
-        if keep:
-            tcps = to_mm(cache.tcp_all[keep])[:, list(axes)]
-            colours = [status_colour(worst[cell.targets[k].name]) for k in keep]
-            ax.scatter(tcps[:, 0], tcps[:, 1], s=14, c=colours, edgecolors="black", linewidths=0.4, zorder=7)
+    for status, keep in sorted(cache.targets_by_status().items(), key=lambda kv: -_sev(kv[0])) if worst else ():
+        tcps = to_mm(cache.tcp_all[keep])[:, list(axes)]
+        ax.scatter(tcps[:, 0], tcps[:, 1], s=14, color=status_colour(status), edgecolors="black", linewidths=0.4, zorder=7)
 
     base = to_mm(np.asarray(cell.world_from_base)[:3, 3])[list(axes)]
     ax.plot([base[0]], [base[1]], marker="+", color="black", markersize=10, zorder=8)
@@ -344,7 +360,7 @@ def _draw_motion_arm(ax, result, i, k, axes, extent, cache):
             vertices, _ = cache.mesh(shape, extent, body.padding)
             poly = _silhouette(to_mm(transform_points(vertices, world_from_frame[body.frame]))[:, axes])
             if poly is not None:
-                ax.add_patch(Polygon(
+                _add_patch(ax, Polygon(
                     poly, closed=True, facecolor=colour[:3] + (0.18,), edgecolor=colour[:3] + (1.0,), hatch="////",
                     linewidth=0.9, linestyle="--", zorder=3.5 - 0.01 * k,
                 ))
@@ -372,15 +388,20 @@ def chart_points(result) -> dict:
     per_target = np.bincount(col, minlength=len(index))
     # slot of each row within its target: its position among the target's rows, in row order
     order = np.argsort(col, kind="stable")
-    starts = np.concatenate(([0], np.cumsum(per_target)[:-1]))
+    starts = np.cumsum(per_target) - per_target
     slot = np.empty(n, dtype=np.int64)
     slot[order] = np.arange(n) - np.repeat(starts, per_target)
-    width = 0.8 / per_target[col] if n else np.zeros(0)
+    width = 0.8 / per_target[col]
     x = col - 0.4 + (slot + 0.5) * width
     clearance = to_mm(np.fromiter((r.clearance for r in rows), dtype=np.float64, count=n))
     required = to_mm(np.fromiter((r.required for r in rows), dtype=np.float64, count=n))
     status = np.array([r.status for r in rows], dtype=object)
     return {"targets": list(index), "x": x, "width": width, "clearance_mm": clearance, "required_mm": required, "status": status}
+
+
+def _marker_z(status: str) -> float:
+    """zorder of a status's markers in the clearance chart: the more severe on top where markers overlap."""
+    return 3.0 + 0.01 * (len(_SEVERITY) - _sev(status))
 
 
 def clearance_chart(result):
@@ -399,10 +420,10 @@ def clearance_chart(result):
     size = 22 if len(result.rows) < 2000 else 6
     finite = np.isfinite(c)
     statuses = sorted(set(status[finite].tolist()), key=_sev)
-    for rank, st in enumerate(statuses):
+    for st in statuses:
         sel = finite & (status == st)
         ax.scatter(x[sel], c[sel], s=size, color=status_colour(st), edgecolors="black", linewidths=0.3, label=st,
-                   zorder=3 + 0.01 * (len(statuses) - rank))  # the worst on top where markers overlap
+                   zorder=_marker_z(st))
     has_req = np.isfinite(r)
     if has_req.any():
         # every bar as one line broken by NaNs (one path, not one artist per row)
@@ -412,7 +433,8 @@ def clearance_chart(result):
                 color="black", linewidth=1.2, solid_capstyle="butt", zorder=2, label="required clearance")
     unreachable = x[~finite & (status == "unreachable")]
     if len(unreachable):
-        ax.scatter(unreachable, np.zeros(len(unreachable)), marker="x", s=30, color=status_colour("unreachable"), label="unreachable (no branch)", zorder=3)
+        ax.scatter(unreachable, np.zeros(len(unreachable)), marker="x", s=30, color=status_colour("unreachable"),
+                   label="unreachable (no branch)", zorder=_marker_z("unreachable"))
     ax.axhline(0.0, color=(0.3, 0.3, 0.3), linewidth=0.6)
     ax.set_xlim(-0.7, max(n, 1) - 0.3)
     if n <= 40:

@@ -7,6 +7,7 @@ inputs table, taken from ``now``.
 
 from __future__ import annotations
 
+import contextlib
 import io
 from xml.sax.saxutils import escape
 
@@ -27,8 +28,38 @@ PDF_TITLE = "envelope clearance report"
 PDF_AUTHOR = "envelope"
 
 
+class _Paragraph(Paragraph):
+    """A Paragraph that keeps its last line breaking: a table split over pages is measured again on every
+    page, and so is each of its cells; this returns the same breaking for the same width without redoing it."""
+
+    def wrap(self, availWidth, availHeight):
+        memo = getattr(self, "_wrap_memo", None)
+        if memo is not None and memo[0] == availWidth:
+            _, self.width, self._wrapWidths, self.blPara, self.height = memo
+            return self.width, self.height
+        out = super().wrap(availWidth, availHeight)
+        if hasattr(self, "blPara"):  # wrapped (not refused for a too narrow width)
+            self._wrap_memo = (availWidth, self.width, self._wrapWidths, self.blPara, self.height)
+        return out
+
+
 def _p(text, style):
-    return Paragraph(escape(str(text)), style)
+    return _Paragraph(escape(str(text)), style)
+
+
+@contextlib.contextmanager
+def _binary_streams():
+    """Build with reportlab's ASCII85 stream encoding off (``rl_config.useA85``, restored afterwards):
+    images and pages are stored Flate-compressed in binary, as PDF allows, instead of being turned into
+    ASCII text (pure Python here, and a quarter larger)."""
+    from reportlab import rl_config
+
+    old = rl_config.useA85
+    rl_config.useA85 = 0
+    try:
+        yield
+    finally:
+        rl_config.useA85 = old
 
 
 def _grid(data, col_widths=None, header=True, font_size=7.5):
@@ -204,5 +235,6 @@ def pdf_bytes(result, figures: dict, now_text: str) -> bytes:
                 text = str(rec)
             story.append(_p(text, small))
 
-    doc.build(story)
+    with _binary_streams():
+        doc.build(story)
     return buf.getvalue()
