@@ -66,7 +66,25 @@ def motion_glb_names(result) -> dict:
     return out
 
 
-def write_report(result, out_dir, *, now=None) -> dict:
+def _json_child(result, path) -> None:  # runs in a forked process
+    from .tables import write_json
+
+    write_json(result, path)
+
+
+def _start_json(result, path, jobs: int):
+    """A forked process writing clearance.json (it shares the result's memory, nothing is pickled),
+    or None to write it here (one job, or no ``fork`` on this platform)."""
+    import multiprocessing as mp
+
+    if jobs <= 1 or "fork" not in mp.get_all_start_methods():
+        return None
+    proc = mp.get_context("fork").Process(target=_json_child, args=(result, path), daemon=True)
+    proc.start()
+    return proc
+
+
+def write_report(result, out_dir, *, now=None, jobs: int = 1) -> dict:
     """Write every report file of ``result`` into ``out_dir`` (created if missing).
 
     Parameters
@@ -75,6 +93,10 @@ def write_report(result, out_dir, *, now=None) -> dict:
     out_dir : str or Path
     now : datetime, optional
         The report date printed in the HTML and PDF (UTC); the current time if None.
+    jobs : int
+        With 2 or more, clearance.json (the largest file) is written by a second process while this
+        one writes the others; the files are the same either way. Should that process fail, the
+        file is written here.
 
     Returns
     -------
@@ -92,8 +114,10 @@ def write_report(result, out_dir, *, now=None) -> dict:
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     files = {}
+    json_proc = _start_json(result, out / "clearance.json", jobs)
     files["clearance.csv"] = write_csv(result, out / "clearance.csv")
-    files["clearance.json"] = write_json(result, out / "clearance.json")
+    if json_proc is None:
+        files["clearance.json"] = write_json(result, out / "clearance.json")
     stamp = now_text(now)
     figures = report_figures(result)
     files["report.html"] = write_text_atomic(out / "report.html", html_text(result, figures, stamp))
@@ -104,6 +128,11 @@ def write_report(result, out_dir, *, now=None) -> dict:
         files[name] = write_bytes_atomic(out / name, glb_bytes(row_scene(result.cell, row)))
     for name, i in motion_glb_names(result).items():
         files[name] = write_bytes_atomic(out / name, glb_bytes(motion_scene(result.cell, result.motions[i])))
+    if json_proc is not None:
+        json_proc.join()
+        if json_proc.exitcode != 0:  # the child failed (it printed why): write the file here
+            write_json(result, out / "clearance.json")
+        files["clearance.json"] = out / "clearance.json"
     for old in out.iterdir():
         if (GLB_PATTERN.match(old.name) or MOTION_GLB_PATTERN.match(old.name)) and old.name not in files:
             old.unlink()

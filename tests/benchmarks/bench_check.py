@@ -55,7 +55,7 @@ def main() -> None:
             t1 = time.perf_counter()
             result = check_cell(cell, jobs=jobs)  # what `envelope check` runs (targets, programs, space check)
             t2 = time.perf_counter()
-            write_report(result, Path(tmp) / f"out{jobs}")
+            write_report(result, Path(tmp) / f"out{jobs}", jobs=jobs)
             t3 = time.perf_counter()
             n_rows = len(result.rows)
             print(
