@@ -120,7 +120,7 @@ def _run_check_and_report(cell_path: Path, out: Path, jobs: int, as_json: bool,
         result = check_cell(cell, jobs=jobs, progress=progress, space_pitch=_pitch_metres(pitch_mm))
     finally:
         progress.close()
-    files = write_report(result, out)
+    files = write_report(result, out, jobs=jobs)
     files.update(write_space_outputs(result.space, out))
     if as_json:
         click.echo(json.dumps(_json_summary(result, files), indent=2, sort_keys=True))
@@ -341,13 +341,11 @@ def solve(cell: Path, pose: str, frame: str, convention: str, as_json: bool) -> 
               help="Run the chunks on a Dask cluster (needs 'envelope[dask]'); 'local' starts a LocalCluster.")
 @click.option("--chunk", "chunk_size", type=click.IntRange(1, 10_000_000), default=2048, show_default=True,
               help="Poses per chunk (a resumed map needs the same value).")
-@click.option("--method", type=click.Choice(["exact", "fast"]), default="exact", show_default=True,
-              help="exact: the engine on every within-limits branch; fast: bounds first (see docs/maps.md).")
 @click.option("--max-points", type=click.IntRange(1), default=50_000_000, show_default=True,
               help="Refuse grids with more poses than this.")
 @_guarded
 def map_command(cell: Path, region: str, step: str, orientation: str, convention: str, frame: str, point,
-                out: Path, jobs: int, dask, chunk_size: int, method: str, max_points: int) -> None:
+                out: Path, jobs: int, dask, chunk_size: int, max_points: int) -> None:
     """Layout study: clear IK branches and best clearance over a grid of TCP positions of CELL.
 
     An interrupted map resumes from the finished chunks in OUT/chunks. Exit code 0 when it was
@@ -364,7 +362,7 @@ def map_command(cell: Path, region: str, step: str, orientation: str, convention
     bar = _MapProgress()
     try:
         result = mapping.run_map(cell_model, grid, jobs=jobs, dask=dask, chunk_size=chunk_size,
-                                 chunk_dir=Path(out) / "chunks", progress=bar, method=method)
+                                 chunk_dir=Path(out) / "chunks", progress=bar)
     finally:
         bar.close()
     files = mapping.write_map(result, out, point_mm=point_mm, cell=cell_model)

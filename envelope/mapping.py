@@ -23,11 +23,9 @@ Geometry (python-fcl objects do not pickle) is built once per process: ``_engine
 ``ClearanceEngine`` per cell fingerprint (a SHA-256 of the cell's geometry and limits), so a Dask
 worker that receives a fresh copy of the cell with every task still builds it only once.
 
-Two methods (docs/maps.md): ``"exact"`` (default) gives every within-limits branch the clearance
-engine's worst margin and status (compiled, ``envelope.margins``, for cells of polytopes, half-spaces
-and zone meshes); ``"fast"`` first brackets every branch's worst margin with vectorised bounds
-(``FastBounds``) and runs the engine only where they cannot decide the verdict or the pose's best
-margin to 0.5 mm.
+Every within-limits branch gets the clearance engine's worst margin and status (docs/maps.md):
+computed by the compiled loop of ``envelope.margins`` for cells of polytopes, half-spaces and zone
+meshes, by the engine itself for other cells and for the configurations the loop flags.
 """
 
 from __future__ import annotations
@@ -50,8 +48,9 @@ MAX_POINTS = 50_000_000
 """Default limit on the number of grid poses (positions x orientations) of one map."""
 DEFAULT_CHUNK = 2048
 """Default poses per chunk."""
-FORMAT_VERSION = 1
-"""Version of the chunk and map file layout (part of the grid digest)."""
+FORMAT_VERSION = 2
+"""Version of the chunk and map file layout and of how chunk results are computed (part of the grid
+digest). 2: one method (the removed ``method="fast"`` option was part of the digest in version 1)."""
 
 AXES = ("x", "y", "z")
 
@@ -335,14 +334,14 @@ def cell_fingerprint(cell) -> str:
     return h.hexdigest()
 
 
-def grid_digest(cell, grid: MapGrid, chunk_size: int, method: str = "exact") -> str:
-    """SHA-256 (hex) identifying a map's chunks: grid definition, cell fingerprint, chunking, method, format."""
+def grid_digest(cell, grid: MapGrid, chunk_size: int) -> str:
+    """SHA-256 (hex) identifying a map's chunks: grid definition, cell fingerprint, chunking, format."""
     h = hashlib.sha256()
     h.update(json.dumps(grid.describe(), sort_keys=True).encode())
     h.update(np.ascontiguousarray(grid.angles).tobytes() + np.ascontiguousarray(grid.origin).tobytes())
     h.update(np.ascontiguousarray(grid.step).tobytes() + np.ascontiguousarray(grid.world_from_frame).tobytes())
     h.update(cell_fingerprint(cell).encode())
-    h.update(f"chunk={int(chunk_size)};method={method};format={FORMAT_VERSION}".encode())
+    h.update(f"chunk={int(chunk_size)};format={FORMAT_VERSION}".encode())
     return h.hexdigest()
 
 
@@ -378,20 +377,6 @@ def _engine(cell, key: str | None = None):
     return eng
 
 
-_FAST: dict = {}
-
-
-def _fast(cell, key, engine):
-    key = key or cell_fingerprint(cell)
-    fb = _FAST.get(key)
-    if fb is None:
-        if len(_FAST) >= 4:
-            _FAST.pop(next(iter(_FAST)))
-        fb = _FAST[key] = FastBounds(cell, engine)
-        fb.usable = fb.usable and bool((fb.required > 0).all())
-    return fb
-
-
 _COMPILED: dict = {}
 
 
@@ -420,19 +405,16 @@ def _exact_margins(cell, key, engine, q):
     return worst, overall, int(approx.sum())
 
 
-def evaluate_chunk(cell, grid: MapGrid, start: int, stop: int, *, method: str = "exact",
-                   cell_key: str | None = None) -> ChunkResult:
+def evaluate_chunk(cell, grid: MapGrid, start: int, stop: int, *, cell_key: str | None = None) -> ChunkResult:
     """Map results of the grid poses with flat indices ``start..stop-1`` (a pure function).
 
-    Every existing branch is solved (batch closed-form IK). With ``method="exact"`` every
-    within-limits branch gets the clearance engine's worst margin and status (``ClearanceEngine(cell,
-    prune=True)``, whose pruning never changes a status nor the worst pair), computed by the
-    compiled loop of ``envelope.margins`` where the cell's shapes allow it (the engine's values to
-    about 1e-6 m; ``n_engine`` counts the configurations left to the engine). With ``"fast"``,
-    ``FastBounds`` brackets each branch's worst margin and only branches it cannot decide (the
-    verdict, or the pose's best margin to ``FAST_TOL``) go to the engine; the verdicts are the
-    engine's and the best margin is within ``FAST_TOL`` below the engine's. ``cell_key`` (the cell
-    fingerprint) saves recomputing it per chunk.
+    Every existing branch is solved (batch closed-form IK), and every within-limits branch gets the
+    clearance engine's worst margin and status (``ClearanceEngine(cell, prune=True)``, whose pruning
+    never changes a status nor the worst pair), computed by the compiled loop of ``envelope.margins``
+    where the cell's shapes allow it (statuses equal to the engine's, margins within 1e-5 m of its
+    values). ``n_configs`` counts the within-limits branches, ``n_engine`` those left to the engine
+    (all of them on cells the loop does not support). ``cell_key`` (the cell fingerprint) saves
+    recomputing it per chunk.
     """
     from .clearance import STATUS_CLEAR
 
@@ -444,19 +426,12 @@ def evaluate_chunk(cell, grid: MapGrid, start: int, stop: int, *, method: str = 
     margin = np.full(ok.shape, -np.inf)
     clear = np.zeros(ok.shape, dtype=bool)
     n_cfg = int(ok.sum())
-    n_engine = n_cfg
+    n_engine = 0
     if n_cfg:
         engine = _engine(cell, cell_key)
-        fast = _fast(cell, cell_key, engine) if method == "fast" else None
-        if fast is not None and fast.usable:
-            owner = np.nonzero(ok)[0]
-            lo, _, cl, n_engine = fast.worst_margins(ik.q[ok], owner, engine)
-            margin[ok] = lo
-            clear[ok] = cl
-        else:
-            worst, overall, n_engine = _exact_margins(cell, cell_key, engine, ik.q[ok])
-            margin[ok] = worst
-            clear[ok] = overall == STATUS_CLEAR
+        worst, overall, n_engine = _exact_margins(cell, cell_key, engine, ik.q[ok])
+        margin[ok] = worst
+        clear[ok] = overall == STATUS_CLEAR
     n_within = ok.sum(axis=1)
     best = np.where(n_within > 0, margin.max(axis=1), np.nan)
     return ChunkResult(
@@ -475,12 +450,12 @@ def _init_worker(cell, key):
     _engine(cell, key)
 
 
-def _pool_task(grid, start, stop, method):
-    return evaluate_chunk(_WORKER["cell"], grid, start, stop, method=method, cell_key=_WORKER["key"])
+def _pool_task(grid, start, stop):
+    return evaluate_chunk(_WORKER["cell"], grid, start, stop, cell_key=_WORKER["key"])
 
 
-def _dask_task(cell, grid, start, stop, method, key):
-    return evaluate_chunk(cell, grid, start, stop, method=method, cell_key=key)
+def _dask_task(cell, grid, start, stop, key):
+    return evaluate_chunk(cell, grid, start, stop, cell_key=key)
 
 
 # ============================================================================ chunk files
@@ -550,11 +525,8 @@ class MapResult:
         return self.n_within > 0
 
 
-METHODS = ("exact", "fast")
-
-
 def run_map(cell, grid: MapGrid, *, jobs: int = 1, dask: str | None = None, chunk_size: int = DEFAULT_CHUNK,
-            chunk_dir=None, progress=None, method: str = "exact") -> MapResult:
+            chunk_dir=None, progress=None) -> MapResult:
     """Evaluate every pose of ``grid`` (see the module docstring).
 
     Parameters
@@ -575,11 +547,6 @@ def run_map(cell, grid: MapGrid, *, jobs: int = 1, dask: str | None = None, chun
     progress : callable(done, total, rate, eta), optional
         Called after every chunk with poses done, poses in all, poses per second (chunks computed
         in this run) and the estimated seconds left (``nan`` before the first computed chunk).
-    method : {"exact", "fast"}
-        ``"exact"`` (default): the clearance engine on every within-limits branch. ``"fast"``:
-        vectorised bounds first, the engine only where they cannot decide (same verdicts; best
-        margin within ``FAST_TOL`` = 0.5 mm below the engine's). See ``evaluate_chunk``. With the
-        current engine ``"exact"`` is the faster of the two on the demo cell (docs/maps.md).
 
     Returns
     -------
@@ -592,12 +559,10 @@ def run_map(cell, grid: MapGrid, *, jobs: int = 1, dask: str | None = None, chun
         raise InputError(f"chunk size must be >= 1 pose, got {chunk_size}", item="--chunk")
     if int(jobs) < 1:
         raise InputError(f"jobs must be >= 1, got {jobs}", item="--jobs")
-    if method not in METHODS:
-        raise InputError(f"method must be one of {METHODS}, got {method!r}", item="--method")
     chunk_size, jobs = int(chunk_size), int(jobs)
     t0 = time.perf_counter()
     key = cell_fingerprint(cell)
-    digest = grid_digest(cell, grid, chunk_size, method)
+    digest = grid_digest(cell, grid, chunk_size)
     total = grid.size
     bounds = [(s, min(s + chunk_size, total)) for s in range(0, total, chunk_size)]
     folder = None if chunk_dir is None else Path(chunk_dir)
@@ -625,15 +590,15 @@ def run_map(cell, grid: MapGrid, *, jobs: int = 1, dask: str | None = None, chun
 
     if dask is not None:
         backend = "dask-local" if dask == "local" else "dask"
-        _run_dask(cell, grid, bounds, todo, key, dask, jobs, finished, method)
+        _run_dask(cell, grid, bounds, todo, key, dask, jobs, finished)
     elif jobs > 1 and len(todo) > 1:
         backend = f"processes-{jobs}"
-        _run_pool(cell, grid, bounds, todo, key, jobs, finished, method)
+        _run_pool(cell, grid, bounds, todo, key, jobs, finished)
     else:
         backend = "serial"
         for i in todo:
             s, e = bounds[i]
-            finished(i, evaluate_chunk(cell, grid, s, e, method=method, cell_key=key))
+            finished(i, evaluate_chunk(cell, grid, s, e, cell_key=key))
 
     shape = grid.array_shape
     cat = lambda name: np.concatenate([getattr(parts[i], name) for i in range(len(bounds))]).reshape(shape)  # noqa: E731
@@ -644,7 +609,7 @@ def run_map(cell, grid: MapGrid, *, jobs: int = 1, dask: str | None = None, chun
     )
 
 
-def _run_pool(cell, grid, bounds, todo, key, jobs, finished, method):
+def _run_pool(cell, grid, bounds, todo, key, jobs, finished):
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
     with ProcessPoolExecutor(jobs, initializer=_init_worker, initargs=(cell, key)) as pool:
@@ -654,7 +619,7 @@ def _run_pool(cell, grid, bounds, todo, key, jobs, finished, method):
             while queue or pending:
                 while queue and len(pending) < 2 * jobs:  # bounded look-ahead: an interrupt loses little
                     i = queue.pop(0)
-                    pending[pool.submit(_pool_task, grid, *bounds[i], method)] = i
+                    pending[pool.submit(_pool_task, grid, *bounds[i])] = i
                 done, _ = wait(pending, return_when=FIRST_COMPLETED)
                 for f in done:
                     finished(pending.pop(f), f.result())
@@ -664,7 +629,7 @@ def _run_pool(cell, grid, bounds, todo, key, jobs, finished, method):
             raise
 
 
-def _run_dask(cell, grid, bounds, todo, key, address, jobs, finished, method):
+def _run_dask(cell, grid, bounds, todo, key, address, jobs, finished):
     try:
         from distributed import Client, LocalCluster, as_completed
     except ImportError:
@@ -683,7 +648,7 @@ def _run_dask(cell, grid, bounds, todo, key, address, jobs, finished, method):
     try:
         cell_f = client.scatter(cell, broadcast=True)
         grid_f = client.scatter(grid, broadcast=True)
-        futures = {client.submit(_dask_task, cell_f, grid_f, s, e, method, key, key=f"envelope-map-{key[:8]}-{i}-{s}", pure=False): i
+        futures = {client.submit(_dask_task, cell_f, grid_f, s, e, key, key=f"envelope-map-{key[:8]}-{i}-{s}", pure=False): i
                    for i in todo for (s, e) in [bounds[i]]}
         try:
             for f in as_completed(futures):
@@ -1000,552 +965,3 @@ def plot_slices(result: MapResult, summary: MapSummary, plan_png, elevation_png,
         fig.tight_layout()
         _atomic(Path(path), lambda tmp: fig.savefig(tmp, format="png"))
         plt.close(fig)
-
-
-# ============================================================================ fast bounds
-FAST_TOL = 0.5e-3
-"""Width (m) of the interval a fast-path best margin is known to lie in before it is accepted (<= 1 mm)."""
-ENGINE_EPS = 1e-4
-"""Allowed shortfall (m) of the engine's certified bound below the true distance of two separated
-convex solids (python-fcl 0.7 capsule-box witnesses were seen 1.3e-5 m short); checked by the tests."""
-FW_ITERATIONS = 48
-"""Most iterations of the vectorised distance solver per pair before the engine is asked instead."""
-
-
-class FastBounds:
-    """Vectorised bounds ``[lo, hi]`` on the engine's worst margin of configurations (``method="fast"``).
-
-    Built from the cell and checked against ``engine.pairs`` (same pairs, same order, same required
-    clearances); ``usable`` is False when they do not match (the map then uses the engine alone).
-
-    Per pair (a body shape against a zone shape or another body shape, padding subtracted):
-
-    - half-space zones: the engine's exact value ``-h_A(-n) - offset`` (support over the body's hull);
-    - other convex shapes: the distance of the two solids bracketed by a vectorised Gilbert /
-      Frank-Wolfe iteration on their Minkowski difference (upper: the length of a difference of two
-      points of the solids; lower: the support gap along the current direction), or only by the
-      bounding-sphere bound (which the engine's value never goes below) where not refined;
-    - zone meshes: the bounding-sphere bound only (the engine's mesh bound can be below the true
-      distance, so a configuration whose worst pair may be such a pair goes to the engine).
-
-    The engine's value ``E`` of a pair satisfies ``E <= true distance <= hi`` always, and
-    ``E >= lo - ENGINE_EPS`` for separated convex pairs (python-fcl's witness direction), so
-    intervals that are narrow enough decide the verdict and the best margin without the engine.
-    """
-
-    def __init__(self, cell, engine):
-        from . import geometry as gm
-
-        self.cell = cell
-        self.arm = cell.arm
-        self.world_from_base = np.asarray(cell.world_from_base, dtype=np.float64)
-        bodies = tuple(cell.bodies)
-        slots = []  # dict(kind, shape, frame (-1 zone), center, radius, pad)
-        body_slots = []
-        self.usable = True
-        for b in bodies:
-            ids = []
-            for s in b.shapes:
-                if isinstance(s, gm.TriMesh):
-                    s = gm.convex_hull(s)
-                c, r = gm.bounding_sphere(s)
-                kind = "convex" if isinstance(s, (gm.Convex, gm.Box, gm.Sphere, gm.Capsule)) else "other"
-                slots.append(dict(kind=kind, shape=s, frame=int(b.frame), center=np.array(c), radius=float(r),
-                                  pad=float(b.padding)))
-                ids.append(len(slots) - 1)
-            body_slots.append(ids)
-        zone_slots = []
-        for z in cell.zones:
-            ids = []
-            for s in z.shapes:
-                if isinstance(s, gm.HalfSpace):
-                    kind, c, r = "half", np.zeros(3), np.inf
-                else:
-                    c, r = gm.bounding_sphere(s)
-                    kind = ("mesh" if isinstance(s, gm.TriMesh) else
-                            "convex" if isinstance(s, (gm.Convex, gm.Box, gm.Sphere, gm.Capsule)) else "other")
-                slots.append(dict(kind=kind, shape=s, frame=-1, center=np.array(c), radius=float(r), pad=0.0))
-                ids.append(len(slots) - 1)
-            zone_slots.append(ids)
-        pairs = []  # (body, other, required, allowed, [(a, b) slot pairs])
-        for bi, b in enumerate(bodies):
-            if not body_slots[bi]:
-                continue
-            for zi, z in enumerate(cell.zones):
-                for sid in zone_slots[zi]:
-                    pairs.append((b.name, z.name, float(z.clearance), b.name in z.allowed,
-                                  [(a, sid) for a in body_slots[bi]]))
-        allowed_self = {frozenset(p) for p in cell.self_pairs_allowed}
-        for i in range(len(bodies)):
-            for j in range(i + 1, len(bodies)):
-                bi, bj = bodies[i], bodies[j]
-                if abs(int(bi.frame) - int(bj.frame)) < 2 or frozenset((bi.name, bj.name)) in allowed_self:
-                    continue
-                if not body_slots[i] or not body_slots[j]:
-                    continue
-                pairs.append((bi.name, bj.name, float(cell.self_clearance), False,
-                              [(a, b_) for a in body_slots[i] for b_ in body_slots[j]]))
-        ep = engine.pairs
-        if len(ep) != len(pairs) or any(
-            (p.body, p.other, p.allowed) != (q[0], q[1], q[3]) or abs(p.required - q[2]) > 1e-12 for p, q in zip(ep, pairs)
-        ):
-            self.usable = False
-        if any(s["kind"] == "other" for s in slots):
-            self.usable = False
-        self.slots = slots
-        keep = [p for p in range(len(pairs)) if not pairs[p][3]]  # allowed pairs never count
-        self.required = np.array([pairs[p][2] for p in keep])
-        sp_a, sp_b, sp_pair = [], [], []
-        for k, p in enumerate(keep):
-            for a, b_ in pairs[p][4]:
-                sp_a.append(a)
-                sp_b.append(b_)
-                sp_pair.append(k)
-        self.sp_a, self.sp_b, self.sp_pair = np.array(sp_a, int), np.array(sp_b, int), np.array(sp_pair, int)
-        self.n_pairs = len(keep)
-        self.pad = np.array([slots[a]["pad"] + slots[b_]["pad"] for a, b_ in zip(sp_a, sp_b)])
-        kinds = np.array([s["kind"] for s in slots])
-        self.sp_half = kinds[self.sp_b] == "half"
-        self.sp_mesh = kinds[self.sp_b] == "mesh"
-        self.S_center = np.array([s["center"] for s in slots]).reshape(-1, 3)
-        self.S_radius = np.array([s["radius"] for s in slots])
-        self.S_frame = np.array([s["frame"] for s in slots])
-        self.S_moving = self.S_frame >= 0
-        outer = [_outer_box(gm, s["shape"]) for s in slots]
-        self.S_oc = np.array([o[0] for o in outer])
-        self.S_ow = np.array([o[1] for o in outer])  # (S, 3, 3): rows are half-axis vectors
-        self.S_or = np.array([o[2] for o in outer])
-
-    # ------------------------------------------------------------------ posing and supports
-    def _poses(self, q):
-        F = self.world_from_base @ self.arm.frames(q)  # (n, 7, 4, 4)
-        n, S = len(q), len(self.slots)
-        R = np.broadcast_to(np.eye(3), (n, S, 3, 3)).copy()
-        t = np.zeros((n, S, 3))
-        mv = np.flatnonzero(self.S_moving)
-        Fm = F[:, self.S_frame[mv]]
-        R[:, mv] = Fm[..., :3, :3]
-        t[:, mv] = Fm[..., :3, 3]
-        return R, t
-
-    def _support(self, slot, R, t, u):
-        """World support points ``(k, 3)`` of ``slot`` posed by ``R (k, 3, 3)``, ``t (k, 3)`` along ``u (k, 3)``."""
-        from . import geometry as gm
-
-        shape = self.slots[slot]["shape"]
-        if self.slots[slot]["frame"] < 0:
-            return gm.support_point(shape, u)
-        local = np.einsum("kji,kj->ki", R, u)
-        p = gm.support_point(shape, local)
-        return np.einsum("kij,kj->ki", R, p) + t
-
-    def _support_many(self, slots, R, t, u):
-        out = np.empty_like(u)
-        for s in np.unique(slots):
-            m = slots == s
-            out[m] = self._support(int(s), R[m], t[m], u[m])
-        return out
-
-    # ------------------------------------------------------------------ bounds
-    def bounds(self, q):
-        """``lo, hi (n, P')`` bounds on the engine's ``distance - required`` of every non-allowed pair,
-        ``exact (n, P')`` bool where the pair is known to within FAST_TOL, and ``mesh (n, P')`` bool
-        where only the sphere bound is available (zone meshes)."""
-        n = len(q)
-        R, t = self._poses(q)
-        a, b = self.sp_a, self.sp_b
-        ca = np.einsum("nsij,sj->nsi", R[:, a], self.S_center[a]) + t[:, a]
-        cb = np.einsum("nsij,sj->nsi", R[:, b], self.S_center[b]) + t[:, b]
-        d = cb - ca
-        lo = np.sqrt((d * d).sum(-1)) - self.S_radius[a] - self.S_radius[b] - 1e-9
-        hi = np.full(lo.shape, np.inf)
-        # half-spaces: exact
-        for m in np.flatnonzero(self.sp_half):
-            hs = self.slots[b[m]]["shape"]
-            p = self._support(int(a[m]), R[:, a[m]], t[:, a[m]], np.broadcast_to(-hs.normal, (n, 3)).copy())
-            val = p @ hs.normal - hs.offset
-            lo[:, m] = val - 1e-9
-            hi[:, m] = val + 1e-9
-        return R, t, lo, hi
-
-    def obb_lower(self, R, t, items, lo):
-        """Raise ``lo`` at ``items`` (convex shape pairs) to the support gap of the shapes' outer boxes
-        (exact for boxes, capsules and spheres) along the centre direction and both boxes' axes: a
-        lower bound on the distance of separated convex solids."""
-        rows, cols = items
-        ac, bc = self.sp_a[cols], self.sp_b[cols]
-        Ra, Rb = R[rows, ac], R[rows, bc]
-        oa = np.einsum("kij,kj->ki", Ra, self.S_oc[ac]) + t[rows, ac]
-        ob = np.einsum("kij,kj->ki", Rb, self.S_oc[bc]) + t[rows, bc]
-        wa = self.S_ow[ac] @ np.swapaxes(Ra, 1, 2)  # (k, 3, 3) world half-axes (rows)
-        wb = self.S_ow[bc] @ np.swapaxes(Rb, 1, 2)
-        dc = ob - oa
-        u0 = dc / np.maximum(np.sqrt(_dot(dc, dc)), 1e-300)[:, None]
-        U = np.concatenate([u0[:, None], _unit_rows(wa), _unit_rows(wb)], axis=1)  # (k, 7, 3)
-        sg = np.sign(_dot(U, dc[:, None]))
-        U = U * np.where(sg == 0, 1.0, sg)[..., None]
-        ha = _dot(U, oa[:, None]) + self.S_or[ac][:, None]
-        hb = -_dot(U, ob[:, None]) + self.S_or[bc][:, None]
-        for j in range(3):
-            ha = ha + np.abs(_dot(U, wa[:, None, j]))
-            hb = hb + np.abs(_dot(U, wb[:, None, j]))
-        gap = (-hb - ha).max(axis=-1) - 1e-9
-        lo[rows, cols] = np.where(gap > 0, np.maximum(lo[rows, cols], gap), lo[rows, cols])  # separated only
-
-    def mesh_lower(self, R, t, items, lo, need=None):
-        """Raise ``lo`` at ``items`` (body shape against a zone mesh) to a bound the engine's value never
-        goes below: the part of its own mesh bound that does not use python-fcl (per triangle, the best
-        support gap along the triangle normal, both signs, and the direction from the body's centre,
-        or the sphere bound; the minimum over triangles). Where the body may lie inside the mesh, or
-        the mesh inside the body (the engine then reports an intrusion of unknown depth), ``lo`` is
-        set to ``-inf`` so the engine decides."""
-        from . import geometry as gm
-
-        rows, cols = items
-        if need is None:
-            need = np.full(len(rows), np.inf)
-        for m in np.unique(cols):
-            sel = cols == m
-            r = rows[sel]
-            want = need[sel]  # the distance that must be certified: triangles whose sphere bound is
-            # already above it need no support gaps (their sphere bound is used as it is)
-            a, b = int(self.sp_a[m]), int(self.sp_b[m])
-            zone = self.slots[b]
-            if not hasattr(self, "_V"):
-                self._V, self._r = self._vertex_data()
-            if "tris" not in zone:
-                tris = np.asarray(zone["shape"].vertices)[np.asarray(zone["shape"].faces)]
-                nrm = np.cross(tris[:, 1] - tris[:, 0], tris[:, 2] - tris[:, 0])
-                ln = np.linalg.norm(nrm, axis=1)
-                zone["tris"] = tris
-                zone["nrm"] = np.where(ln[:, None] > 0, nrm / np.where(ln > 0, ln, 1.0)[:, None], [0.0, 0.0, 1.0])
-                zone["cen"] = tris.mean(axis=1)
-                zone["rt"] = np.sqrt(((tris - zone["cen"][:, None]) ** 2).sum(axis=2)).max(axis=1)
-            tris, nrm, cen, rt = zone["tris"], zone["nrm"], zone["cen"], zone["rt"]
-            body = self.slots[a]
-            Ra, ta = R[r, a], t[r, a]  # (k, 3, 3), (k, 3)
-            ca = np.einsum("kij,j->ki", Ra, body["center"]) + ta
-            dc = cen[None] - ca[:, None]  # (k, T, 3)
-            ndc = np.sqrt((dc * dc).sum(-1))
-            dc_u = np.where((ndc > 1e-300)[..., None], dc / np.where(ndc > 1e-300, ndc, 1.0)[..., None], [0.0, 0.0, 1.0])
-            sph = ndc - rt[None] - body["radius"]  # (k, T)
-            cand = sph < want[:, None]
-            bound = np.where(cand, np.inf, sph).min(axis=1)
-            kk, tt = np.nonzero(cand)
-            if len(kk):
-                if "hull" not in body:
-                    body["hull"] = np.asarray(body["shape"].vertices) if isinstance(body["shape"], gm.Convex) else self._V[a]
-                V = body["hull"]
-                D = np.stack([nrm[tt], -nrm[tt], dc_u[kk, tt]], axis=1)  # (c, 3, 3) directions
-                local = D @ Ra[kk]  # rows: R^T u
-                h = (local @ V.T).max(axis=-1) + self._r[a] + (D @ ta[kk][:, :, None])[..., 0]
-                tri_min = (D @ np.swapaxes(tris[tt], 1, 2)).min(axis=-1)
-                gap = (tri_min - h).max(axis=-1)
-                val = np.maximum(gap, sph[kk, tt])
-                np.minimum.at(bound, kk, val)
-            bound = bound - 1e-9
-            new = np.maximum(lo[r, m], bound)
-            pad = self.pad[m]
-            # inside tests, as the engine makes them where the bound is positive
-            test = new - pad > 0
-            if test.any() and zone["shape"].watertight:
-                ip = gm.interior_point(body["shape"])
-                pts = np.einsum("kij,j->ki", Ra[test], ip) + ta[test]
-                vz = np.asarray(zone["shape"].vertices)
-                box = ((pts >= vz.min(axis=0)) & (pts <= vz.max(axis=0))).all(axis=1)  # outside the box: outside
-                inside = np.zeros(len(pts), bool)
-                if box.any():
-                    inside[box] = gm.contains_points(zone["shape"], pts[box])
-                idx = np.flatnonzero(test)[inside]
-                new[idx] = -np.inf
-            if test.any():
-                v0 = np.asarray(zone["shape"].vertices)[0]
-                loc = np.einsum("kji,kj->ki", Ra[test], v0[None] - ta[test])
-                inside = gm.contains_points(body["shape"], loc)
-                idx = np.flatnonzero(test)[inside]
-                new[idx] = -np.inf
-            new[~test] = -np.inf  # not certified positive: the engine may report an unknown depth
-            lo[r, m] = new
-
-    def _vertex_data(self):
-        """Per slot: points ``(S, Vmax, 3)`` (padded by repeating the first) and a radius ``(S,)``: the
-        solid is the convex hull of the points, inflated by the radius (sphere, capsule, box, hull)."""
-        from . import geometry as gm
-
-        pts, rad = [], []
-        for sl in self.slots:
-            s = sl["shape"]
-            if isinstance(s, gm.Sphere):
-                p, r = np.array([s.center]), s.radius
-            elif isinstance(s, gm.Capsule):
-                p, r = np.array([s.p0, s.p1]), s.radius
-            elif isinstance(s, gm.Box):
-                c = np.array(np.meshgrid([-0.5, 0.5], [-0.5, 0.5], [-0.5, 0.5], indexing="ij")).reshape(3, -1).T
-                p, r = (c * s.extents) @ s.pose[:3, :3].T + s.pose[:3, 3], 0.0
-            elif isinstance(s, gm.Convex):
-                p, r = np.asarray(s.vertices), 0.0
-            else:  # half-spaces, meshes, cylinders: never refined
-                p, r = np.zeros((1, 3)), 0.0
-            pts.append(np.asarray(p, dtype=np.float64))
-            rad.append(float(r))
-        self._Vs = pts  # unpadded, for the support search
-        vmax = max(len(p) for p in pts)
-        out = np.empty((len(pts), vmax, 3))
-        for i, p in enumerate(pts):
-            out[i, :len(p)] = p
-            out[i, len(p):] = p[0]
-        return out, np.array(rad)
-
-    def _supp(self, slots, R, t, u):
-        """World support points ``(k, 3)`` of ``slots (k,)`` posed by ``R, t`` along ``u (k, 3)``."""
-        local = (u[:, None, :] @ R)[:, 0]  # R^T u
-        p = np.empty_like(local)
-        order = np.argsort(slots, kind="stable")
-        ss = slots[order]
-        cuts = np.flatnonzero(np.diff(ss)) + 1
-        for grp in np.split(order, cuts):
-            V = self._Vs[int(slots[grp[0]])]
-            p[grp] = V[np.argmax(local[grp] @ V.T, axis=1)]
-        r = self._r[slots]
-        nu = np.sqrt(_dot(u, u))
-        p = (R @ p[:, :, None])[:, :, 0] + t
-        return p + (r / np.where(nu > 0, nu, 1.0))[:, None] * u
-
-    def refine(self, R, t, items, lo, hi, tol=FAST_TOL, block=4096):
-        """Narrow ``lo, hi (n, M)`` (shape-pair distances, padding not subtracted) at ``items`` (rows,
-        shape-pair columns) by a vectorised GJK-style iteration on the Minkowski difference ``D = B - A``.
-
-        Every iterate is an explicit convex combination of support points of D, so its length is an
-        upper bound on the distance; ``z . s / |z|`` (``s`` the support of D towards the origin) is a
-        lower bound (Gilbert 1966; the simplex is a triangle, its closest point to the origin found
-        by enumerating the interior, edge and vertex candidates). Returns bool ``(k,)``: the interval
-        is at most ``tol`` wide (the lower bound then also allows ``ENGINE_EPS``).
-        """
-        if not hasattr(self, "_V"):
-            self._V, self._r = self._vertex_data()
-        rows, cols = items
-        k = len(rows)
-        done = np.zeros(k, bool)
-        for s0 in range(0, k, block):
-            sl = slice(s0, min(k, s0 + block))
-            done[sl] = self._refine_block(R, t, rows[sl], cols[sl], lo, hi, tol)
-        return done
-
-    def _refine_block(self, R, t, rows, cols, lo, hi, tol):
-        k = len(rows)
-        sa, sb = self.sp_a[cols], self.sp_b[cols]
-        Ra, ta, Rb, tb = R[rows, sa], t[rows, sa], R[rows, sb], t[rows, sb]
-        ca = np.einsum("kij,kj->ki", Ra, self.S_center[sa]) + ta
-        cb = np.einsum("kij,kj->ki", Rb, self.S_center[sb]) + tb
-        u0 = cb - ca
-        u0 = np.where((np.abs(u0).sum(-1) > 0)[:, None], u0, [0.0, 0.0, 1.0])
-        z = self._supp(sb, Rb, tb, -u0) - self._supp(sa, Ra, ta, u0)
-        W = np.repeat(z[:, None], 3, axis=1)  # the simplex (a triangle, possibly degenerate)
-        L = lo[rows, cols].copy()
-        U = np.sqrt((z * z).sum(-1))
-        act = np.arange(k)
-        ok = np.zeros(k, bool)
-        for _ in range(FW_ITERATIONS):
-            if not len(act):
-                break
-            za = z[act]
-            s = self._supp(sb[act], Rb[act], tb[act], -za) - self._supp(sa[act], Ra[act], ta[act], za)
-            nz = np.sqrt((za * za).sum(-1))
-            with np.errstate(invalid="ignore", divide="ignore"):
-                gap = np.where(nz > 1e-15, (za * s).sum(-1) / nz, -np.inf)
-            L[act] = np.maximum(L[act], gap)
-            fin = (U[act] - L[act] <= tol)
-            ok[act[fin]] = True
-            stop = fin | (U[act] < 1e-9)  # converged, or touching/overlapping (the engine decides)
-            keep = ~stop
-            act, za, s = act[keep], za[keep], s[keep]
-            if not len(act):
-                break
-            Wa = W[act]
-            best_p, best_n = za, (za * za).sum(-1)
-            best_T = Wa
-            for i, j in ((0, 1), (0, 2), (1, 2)):
-                T = np.stack([Wa[:, i], Wa[:, j], s], axis=1)
-                p = _closest_to_origin(T)
-                n2 = (p * p).sum(-1)
-                better = n2 < best_n
-                best_p = np.where(better[:, None], p, best_p)
-                best_n = np.where(better, n2, best_n)
-                best_T = np.where(better[:, None, None], T, best_T)
-            z[act] = best_p
-            W[act] = best_T
-            U[act] = np.minimum(U[act], np.sqrt(best_n))
-        ok &= L > 0  # separated: the engine's value is then within ENGINE_EPS of the distance
-        lo[rows, cols] = np.where(ok, L - ENGINE_EPS, lo[rows, cols])
-        hi[rows, cols] = np.minimum(hi[rows, cols], U)
-        return ok
-
-    # ------------------------------------------------------------------ worst margins
-    def worst_margins(self, q, owner, engine, tol=FAST_TOL):
-        """Engine-equivalent worst margin and clear verdict of configurations ``q (N, 6)``.
-
-        ``owner (N,)`` is the pose each configuration belongs to: a configuration's margin is only
-        narrowed as far as its pose's best margin needs (to ``tol``). Returns ``(margin_lo (N,),
-        margin_hi (N,), clear (N,) bool, n_engine)``; the pose's best margin is known to lie in
-        ``[max margin_lo, max margin_hi]`` of its configurations, an interval at most ``tol`` wide.
-        """
-        N = len(q)
-        if N == 0:
-            return np.zeros(0), np.zeros(0), np.zeros(0, bool), 0
-        if self.n_pairs == 0:
-            inf = np.full(N, np.inf)
-            return inf, inf, np.ones(N, bool), 0
-        # diagnostics of the last call: configurations sent to the engine, by reason
-        self.stats = {"mesh": 0, "blocked": 0, "rounds": 0, "undecided": 0}
-        R, t, lo_d, hi_d = self.bounds(q)
-        # the engine's value is only known not to go below these bounds for separated solids (and,
-        # for zone meshes, beyond the padding); elsewhere it is unbounded below
-        # (half-space values are the engine's own, exact, at any depth)
-        floor = np.where(self.sp_mesh, self.pad, 0.0)
-        lo_d = np.where((lo_d > floor) | self.sp_half, lo_d, -np.inf)
-        off = self.pad + self.required[self.sp_pair]  # distance -> margin
-        exact = np.zeros(lo_d.shape, bool)
-        exact[:, self.sp_half] = True
-        tried = exact.copy()
-        boxed = np.zeros(lo_d.shape, bool)
-        engine_rows = np.zeros(N, bool)
-        uniq, inv = np.unique(owner, return_inverse=True)
-
-        def state():
-            lo_m, hi_m = lo_d - off, hi_d - off
-            W_lo, W_hi = lo_m.min(axis=1), hi_m.min(axis=1)
-            best_lo = np.full(len(uniq), -np.inf)
-            best_hi = np.full(len(uniq), -np.inf)
-            np.maximum.at(best_lo, inv, W_lo)
-            np.maximum.at(best_hi, inv, W_hi)
-            decided = (W_lo >= 0) | (W_hi < 0)
-            value = (W_hi > best_lo[inv]) & ((best_hi - best_lo) > tol)[inv] & ~engine_rows
-            # a pair needs narrowing if its lower bound is below what the configuration must show:
-            # W_hi - tol when the pose's best margin may be this configuration's, else 0 (the verdict)
-            thr = np.where(value, W_hi - tol, np.where(decided | engine_rows, -np.inf, 0.0))
-            return lo_m, thr
-
-        for rnd in range(12):
-            lo_m, thr = state()
-            need = (lo_m < thr[:, None]) & ~exact
-            if not need.any():
-                break
-            blocked = (need & tried).any(axis=1)  # a mesh pair or an unconverged pair decides: engine
-            self.stats["mesh"] += int(((need & tried & self.sp_mesh).any(axis=1) & ~engine_rows).sum())
-            self.stats["blocked"] += int((blocked & ~engine_rows).sum())
-            engine_rows |= blocked
-            need &= ~blocked[:, None]
-            # the three lowest bounds of every configuration first: the worst pair is usually among them
-            key = np.where(need, lo_m, np.inf)
-            # zone meshes last: their bound is costly and gets cheaper as the worst margin drops
-            other = (need & ~self.sp_mesh).any(axis=1)
-            key = np.where(self.sp_mesh & other[:, None], np.inf, key)
-            order = np.argsort(key, axis=1)[:, :(3 if rnd < 2 else 6 * rnd)]
-            r3 = np.repeat(np.arange(N), order.shape[1])
-            c3 = order.ravel()
-            sel = need[r3, c3] & ~np.isposinf(key[r3, c3])
-            rows, cols = r3[sel], c3[sel]
-            if not len(rows):
-                break
-            mesh = self.sp_mesh[cols]
-            if mesh.any():  # zone meshes: a lower bound only (the engine decides if they still matter)
-                rm, cm = rows[mesh], cols[mesh]
-                self.mesh_lower(R, t, (rm, cm), lo_d, need=thr[rm] + off[cm] + tol)
-            cv = ~mesh & ~boxed[rows, cols]
-            if cv.any():  # outer-box gaps first: often enough, and far cheaper than the iteration
-                rb, cb = rows[cv], cols[cv]
-                self.obb_lower(R, t, (rb, cb), lo_d)
-                boxed[rb, cb] = True
-                lo_m = lo_d - off
-                still = lo_m[rb, cb] < thr[rb]
-                skip = np.zeros(len(rows), bool)
-                skip[np.flatnonzero(cv)[~still]] = True
-                mesh_or_skip = mesh | skip
-            else:
-                mesh_or_skip = mesh
-            g = ~mesh_or_skip
-            if g.any():
-                exact[rows[g], cols[g]] = self.refine(R, t, (rows[g], cols[g]), lo_d, hi_d, tol)
-                tried[rows[g], cols[g]] = True
-            tried[rows[mesh], cols[mesh]] = True
-        else:
-            lo_m, thr = state()
-            more = ((lo_m < thr[:, None]) & ~exact).any(axis=1) & ~engine_rows
-            self.stats["rounds"] += int(more.sum())
-            engine_rows |= more
-        lo_m, hi_m = lo_d - off, hi_d - off
-        W_lo, W_hi = lo_m.min(axis=1), hi_m.min(axis=1)
-        und = (W_lo < 0) & (W_hi >= 0) & ~engine_rows
-        self.stats["undecided"] += int(und.sum())
-        engine_rows |= und  # the verdict is not decided: the engine's
-        clear = W_lo >= 0
-        idx = np.flatnonzero(engine_rows)
-        if len(idx):
-            from .clearance import STATUS_CLEAR
-
-            res = engine.evaluate(q[idx])
-            W_lo[idx] = W_hi[idx] = res.worst_margin
-            clear[idx] = res.overall == STATUS_CLEAR
-        return W_lo, W_hi, clear, int(len(idx))
-
-
-def _closest_to_origin(T):
-    """Closest points to the origin of triangles ``T (k, 3, 3)`` (degenerate ones allowed), each an
-    explicit convex combination of the corners: the interior solution where its barycentric weights
-    are valid, else the best of the three edges (clamped segment parameters)."""
-    p0, p1, p2 = T[:, 0], T[:, 1], T[:, 2]
-    e1, e2 = p1 - p0, p2 - p0
-    a11, a12, a22 = _dot(e1, e1), _dot(e1, e2), _dot(e2, e2)
-    b1, b2 = -_dot(p0, e1), -_dot(p0, e2)
-    det = a11 * a22 - a12 * a12
-    good = det > 1e-12 * np.maximum(a11 * a22, 1e-300)
-    sd = np.where(good, det, 1.0)
-    l1 = (b1 * a22 - b2 * a12) / sd
-    l2 = (a11 * b2 - a12 * b1) / sd
-    inside = good & (l1 >= 0) & (l2 >= 0) & (l1 + l2 <= 1)
-    best = p0 + l1[:, None] * e1 + l2[:, None] * e2
-    best_n = np.where(inside, _dot(best, best), np.inf)
-    for q0, q1 in ((p0, p1), (p0, p2), (p1, p2)):
-        d = q1 - q0
-        dd = _dot(d, d)
-        tt = np.clip(-_dot(q0, d) / np.where(dd > 0, dd, 1.0), 0.0, 1.0)
-        c = q0 + tt[:, None] * d
-        n2 = _dot(c, c)
-        better = n2 < best_n
-        best = np.where(better[:, None], c, best)
-        best_n = np.where(better, n2, best_n)
-    return best
-
-
-def _dot(a, b):
-    """``a . b`` over a last axis of length 3."""
-    return a[..., 0] * b[..., 0] + a[..., 1] * b[..., 1] + a[..., 2] * b[..., 2]
-
-
-def _unit_rows(w):
-    """Rows of ``w (..., 3, 3)`` scaled to unit length (zero rows stay zero)."""
-    n = np.sqrt(_dot(w, w))
-    return w / np.where(n > 0, n, 1.0)[..., None]
-
-
-def _outer_box(gm, s):
-    """``(centre (3,), half-axes (3, 3) rows, radius)``: an outer box (inflated by the radius) of a
-    shape in its own frame; its support ``u.c + sum |u.w_j| + r|u|`` is >= the shape's."""
-    w = np.zeros((3, 3))
-    if isinstance(s, gm.Sphere):
-        return np.array(s.center), w, s.radius
-    if isinstance(s, gm.Capsule):
-        w[0] = 0.5 * (s.p1 - s.p0)
-        return 0.5 * (s.p0 + s.p1), w, s.radius
-    if isinstance(s, gm.Box):
-        return np.array(s.pose[:3, 3]), (s.pose[:3, :3] * (0.5 * s.extents)).T, 0.0
-    if isinstance(s, (gm.Convex, gm.TriMesh)):
-        v = np.asarray(s.vertices)
-        m = v.mean(axis=0)
-        _, vec = np.linalg.eigh(np.cov((v - m).T) + 1e-18 * np.eye(3))
-        proj = (v - m) @ vec
-        lo, hi = proj.min(axis=0), proj.max(axis=0)
-        c = m + vec @ (0.5 * (lo + hi))
-        half = 0.5 * (hi - lo) * (1 + 1e-9) + 1e-12
-        return c, (vec * half).T, 0.0
-    return np.zeros(3), w, np.inf  # half-spaces, cylinders: not used

@@ -1,13 +1,15 @@
 """Poses per second of a clearance map of the demo cell (not collected by pytest).
 
     /work/venv/bin/python tests/benchmarks/bench_map.py [--sizes 1e4,1e5,1e6] [--backends serial,jobs2,dask2]
-                                                        [--method exact|fast] [--cell capsules]
+                                                        [--cell capsules]
 
 For each grid size (a cube of TCP positions around the arm, tool pointing down, one orientation)
 and backend (this process; a 2-process pool; a 2-worker Dask LocalCluster) it prints the wall time,
-poses per second, poses per second per core, the share of within-limits branches the fast method
-had to send to the clearance engine, and the fraction of positions reachable and clear.
-``--cell capsules`` uses the test cell of tests/test_mapping.py (generated capsule links) instead.
+poses per second, poses per second per core, the within-limits branches of the first chunks and the
+share of them left to the clearance engine (``n_engine``: the configurations the compiled loop of
+envelope.margins flags; all of them on a cell it does not support), and the fraction of positions
+reachable and clear. ``--cell capsules`` uses the test cell of tests/test_mapping.py (generated
+capsule links, which the compiled loop does not support: every branch goes to the engine) instead.
 Each measurement runs in a fresh process so that a crash of python-fcl on one grid does not stop the
 others (it is reported as a crash). With BENCH_MAP_PROGRESS=FILE, every finished chunk appends the
 elapsed time, poses done and the running rate to FILE (a run stopped early still gives a rate).
@@ -66,19 +68,20 @@ def one(args) -> dict:
                 fh.write(f"{time.perf_counter() - t0:.1f} s: {done}/{total} poses, {rate:.1f} poses/s, eta {eta:.0f} s\n")
 
     t0 = time.perf_counter()
-    res = mapping.run_map(cell, g, method=args.method, progress=progress, **kw)
+    res = mapping.run_map(cell, g, progress=progress, **kw)
     wall = time.perf_counter() - t0
     cores = 1 if args.backend == "serial" else 2
     # the engine share, measured serially on the first chunks (cheap to repeat)
     n_probe = min(g.size, 8 * mapping.DEFAULT_CHUNK)
     for s in range(0, n_probe, mapping.DEFAULT_CHUNK):
-        r = orig(cell, g, s, min(s + mapping.DEFAULT_CHUNK, n_probe), method=args.method)
+        r = orig(cell, g, s, min(s + mapping.DEFAULT_CHUNK, n_probe))
         stats["configs"] += r.n_configs
         stats["engine"] += r.n_engine
     return {
-        "cell": cell.name, "size": g.size, "shape": list(g.shape), "backend": args.backend, "method": args.method,
+        "cell": cell.name, "size": g.size, "shape": list(g.shape), "backend": args.backend,
         "wall_s": round(wall, 2), "poses_per_s": round(g.size / wall, 1),
         "poses_per_s_per_core": round(g.size / wall / cores, 1),
+        "configs_first_chunks": stats["configs"], "engine_first_chunks": stats["engine"],
         "engine_share_first_chunks": round(stats["engine"] / max(stats["configs"], 1), 3),
         "reachable_fraction": round(float(res.reachable.mean()), 4), "clear_fraction": round(float(res.clear.mean()), 4),
         "branches_per_pose": round(float(res.n_within.mean()), 3),
@@ -90,7 +93,6 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", default="1e4,1e5")
     ap.add_argument("--backends", default="serial,jobs2,dask2")
-    ap.add_argument("--method", default="exact", choices=("exact", "fast"))
     ap.add_argument("--cell", default="demo", choices=("demo", "capsules"))
     ap.add_argument("--size", help=argparse.SUPPRESS)
     ap.add_argument("--backend", help=argparse.SUPPRESS)
@@ -98,11 +100,10 @@ def main() -> None:
     if args.size:  # a child run
         print(json.dumps(one(args)))
         return
-    print(f"cpu cores: {os.cpu_count()}; cell: {args.cell}; method: {args.method}")
+    print(f"cpu cores: {os.cpu_count()}; cell: {args.cell}")
     for size in args.sizes.split(","):
         for backend in args.backends.split(","):
-            cmd = [sys.executable, str(HERE), "--size", size, "--backend", backend, "--method", args.method,
-                   "--cell", args.cell]
+            cmd = [sys.executable, str(HERE), "--size", size, "--backend", backend, "--cell", args.cell]
             t0 = time.perf_counter()
             p = subprocess.run(cmd, capture_output=True, text=True)
             if p.returncode != 0:
