@@ -165,8 +165,13 @@ def _panel_attributes(zone, item):
     return att
 
 
-def _c_for(z_mm, b_mm, risk):
-    return st.reach_over_distance(max(z_mm, 0.0), b_mm, risk)
+def _c_for(z_mm, b_mm, risk, memo=None):
+    a = max(z_mm, 0.0)
+    if memo is None:
+        return st.reach_over_distance(a, b_mm, risk)
+    if a not in memo:  # layers share their edges: each height looked up once per panel
+        memo[a] = st.reach_over_distance(a, b_mm, risk)
+    return memo[a]
 
 
 def distance_to_shape_lower(shape, points) -> np.ndarray:
@@ -197,14 +202,88 @@ def distance_to_shape_lower(shape, points) -> np.ndarray:
     if isinstance(shape, g.HalfSpace):
         return p @ shape.normal - shape.offset
     if isinstance(shape, (g.Convex, g.TriMesh)):
-        eq = g.hull_equations(shape if isinstance(shape, g.Convex) else g.convex_hull(shape))
+        eq = _hull_equations(shape)
         return (p @ eq[:, :3].T + eq[:, 3]).max(axis=1)
     raise TypeError(f"not a shape: {type(shape).__name__}")
 
 
+def _hull_equations(shape):
+    """Facet planes of a ``Convex``, or of a mesh's hull (the hull computed once per mesh)."""
+    if isinstance(shape, g.Convex):
+        return g.hull_equations(shape)
+    return g._cached(shape, "hull of mesh", lambda: g.hull_equations(g.convex_hull(shape)))
+
+
+def _lipschitz(shape) -> float:
+    """A bound on how fast ``distance_to_shape_lower`` of the shape changes (per metre moved): 1 for the
+    exact distances and for maxima of unit-normal planes, up to rounding of the poses and normals."""
+    if isinstance(shape, (g.Box, g.Cylinder)):
+        return max(1.0, float(np.linalg.norm(shape.pose[:3, :3], 2)))
+    if isinstance(shape, g.HalfSpace):
+        return max(1.0, float(np.linalg.norm(shape.normal)))
+    if isinstance(shape, (g.Convex, g.TriMesh)):
+        return max(1.0, float(np.sqrt((_hull_equations(shape)[:, :3] ** 2).sum(axis=1)).max()))
+    return 1.0  # spheres and capsules: exact distances
+
+
+_BLOCK = 4
+"""Edge (voxels) of the blocks the marked voxels are grouped in to find those nearest a shape."""
+_SLACK = 1e-7
+"""Metres allowed for rounding when a block's bound rules out its voxels (far above the rounding)."""
+
+
+def _blocks(space: Space):
+    """``(label (k,), centres (b, 3), radius)``: the block of every marked voxel (marked order), the
+    centres of the blocks holding marked voxels, and the largest distance from a block's centre to a
+    voxel centre in it."""
+    if "blocks" not in space._cache:
+        occ = np.asarray(space.occupancy, dtype=bool)
+        nb = -(-np.array(occ.shape) // _BLOCK)
+        padded = np.zeros(tuple(nb * _BLOCK), dtype=bool)
+        padded[:occ.shape[0], :occ.shape[1], :occ.shape[2]] = occ
+        used = padded.reshape(nb[0], _BLOCK, nb[1], _BLOCK, nb[2], _BLOCK).any(axis=(1, 3, 5))
+        b3 = np.argwhere(used)
+        number = np.full(tuple(nb), -1, dtype=np.int64)
+        number[b3[:, 0], b3[:, 1], b3[:, 2]] = np.arange(len(b3))
+        b = space.marked_indices() // _BLOCK
+        label = number[b[:, 0], b[:, 1], b[:, 2]]
+        centres = space.origin + (b3 * _BLOCK + 0.5 * _BLOCK) * space.pitch
+        radius = 0.5 * (_BLOCK - 1) * space.pitch * math.sqrt(3.0)
+        space._cache["blocks"] = (label, centres, radius)
+    return space._cache["blocks"]
+
+
+def _near_voxels(space: Space, shape):
+    """``(index (m,), lower (m,))``: marked voxels (indices into ``space.marked_indices()``, ascending) and
+    their ``distance_to_shape_lower`` to ``shape``, such that every other marked voxel's is larger than
+    the smallest of these: min and argmin (first in marked order) over them are those over all.
+
+    The marked voxels are grouped in blocks of ``_BLOCK``^3; the bound of a block's centre less its
+    radius (times the bound's Lipschitz constant) bounds its voxels from below, and the exact bound of
+    the voxels of the best block bounds the minimum from above: only blocks that can reach below that
+    are evaluated voxel by voxel. Cached in the space per shape.
+    """
+    key = ("near", id(shape))
+    hit = space._cache.get(key)
+    if hit is not None and hit[0] is shape:
+        return hit[1], hit[2]
+    pts = space.marked_centers()
+    if len(pts) <= 8 * _BLOCK ** 3:
+        index = np.arange(len(pts))
+    else:
+        label, centres, radius = _blocks(space)
+        fb = distance_to_shape_lower(shape, centres)
+        lower = fb - _lipschitz(shape) * radius - _SLACK
+        first = np.flatnonzero(label == int(np.argmin(fb)))
+        upper = float(distance_to_shape_lower(shape, pts[first]).min())  # a marked voxel's bound
+        index = np.flatnonzero((lower <= upper)[label])
+    d = distance_to_shape_lower(shape, pts[index])
+    space._cache[key] = (shape, index, d)  # the shape kept: its id stays its own
+    return index, d
+
+
 def _space_points(space: Space):
-    idx = space.marked_indices()
-    return space.voxel_centers(idx)
+    return space.marked_centers()
 
 
 def _distance_3d(space: Space, shape):
@@ -212,9 +291,10 @@ def _distance_3d(space: Space, shape):
     pts = _space_points(space)
     if len(pts) == 0:
         return math.inf, None
-    d = distance_to_shape_lower(shape, pts) - space.half_diagonal
+    index, f = _near_voxels(space, shape)
+    d = f - space.half_diagonal
     k = int(np.argmin(d))
-    return float(d[k]), pts[k]
+    return float(d[k]), pts[index[k]]
 
 
 def evaluate_panel(space: Space, zone, panel_index: int, *, risk: str = "high") -> PanelVerdict:
@@ -255,13 +335,14 @@ def evaluate_panel(space: Space, zone, panel_index: int, *, risk: str = "high") 
     layers = []
     governing = None
     gov_result = None
+    memo = {}
     for k, (z0, z1) in enumerate(layers_z):
         dist = float(hd.per_level[k])
         if not math.isfinite(dist):
             continue
         dist_mm = _mm(dist)
         if counts:
-            r0, r1 = _c_for(z0, b, risk), _c_for(z1, b, risk)
+            r0, r1 = _c_for(z0, b, risk, memo), _c_for(z1, b, risk, memo)
             res = r0 if (r0.c_mm or 0.0) >= (r1.c_mm or 0.0) else r1
             c = res.c_mm
             margin = dist_mm - c

@@ -39,10 +39,13 @@ from __future__ import annotations
 import math
 import os
 import tempfile
+import threading
+import weakref
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+from numba import njit
 
 from . import geometry as g
 from .errors import InputError
@@ -132,6 +135,14 @@ class Space:
         if "marked" not in self._cache:
             self._cache["marked"] = np.argwhere(self.occupancy)
         return self._cache["marked"]
+
+    def marked_centers(self) -> np.ndarray:
+        """``(k, 3)`` world centres of the marked voxels (``voxel_centers(marked_indices())``, read-only)."""
+        if "marked centres" not in self._cache:
+            c = self.voxel_centers(self.marked_indices())
+            c.flags.writeable = False
+            self._cache["marked centres"] = c
+        return self._cache["marked centres"]
 
     def boundary_indices(self) -> np.ndarray:
         """``(k, 3)`` int indices of marked voxels with at least one unmarked (or outside) face neighbour."""
@@ -365,9 +376,14 @@ def box_footprint(box) -> np.ndarray:
     """``(m, 2)`` counter-clockwise convex footprint (XY) of a ``Box``."""
     from scipy.spatial import ConvexHull
 
-    xy = box_corners(box)[:, :2]
-    hull = ConvexHull(xy)
-    return xy[hull.vertices]  # scipy gives 2-D hull vertices counter-clockwise
+    def make():
+        xy = box_corners(box)[:, :2]
+        hull = ConvexHull(xy)
+        out = xy[hull.vertices]  # scipy gives 2-D hull vertices counter-clockwise
+        out.flags.writeable = False
+        return out
+
+    return g._cached(box, "footprint", make).copy()
 
 
 # ====================================================================== sphere model of the bodies
@@ -433,6 +449,12 @@ def _covering_spheres(shape, excess):
     raise InputError(f"a moving body cannot hold a {type(shape).__name__}", item="body shape")
 
 
+def _read_only(spheres):
+    c = np.array(spheres[0], dtype=np.float64)
+    c.flags.writeable = False
+    return c, float(spheres[1])
+
+
 def _moving_bodies(cell):
     bodies = [b for b in cell.links if b.frame >= 1] + list(cell.tool.bodies)
     for b in bodies:
@@ -447,8 +469,9 @@ def _frame_spheres(cell, frames, excess):
     for b in _moving_bodies(cell):
         if b.frame not in frames:
             continue
-        for s in b.shapes:
-            c, r = _covering_spheres(s, excess)
+        for s in b.shapes:  # the shapes are immutable: their covering spheres are computed once
+            c, r = g._cached(s, ("covering spheres", float(excess)),
+                             lambda s=s: _read_only(_covering_spheres(s, excess)))
             fr.append(np.full(len(c), b.frame))
             cs.append(c)
             rs.append(np.full(len(c), r + b.padding))
@@ -529,10 +552,11 @@ class _Instances:
     n_cells: tuple
 
 
-def _joint_axes(arm, q):
+def _joint_axes(arm, q, frames=None):
     """``(points, directions)`` (..., 6, 3) of the joint axes (base frame); like ``Arm.joint_axes``,
-    whose batch result has its axes in another order (advanced indexing), so done here from frames."""
-    F = arm.frames(q)
+    whose batch result has its axes in another order (advanced indexing), so done here from frames
+    (``frames``: ``arm.frames(q)`` when already computed)."""
+    F = arm.frames(q) if frames is None else frames
     idx = np.arange(N_JOINTS) if arm.convention == "standard" else np.arange(1, N_JOINTS + 1)
     sel = F[..., idx, :, :]
     return sel[..., :3, 3], sel[..., :3, 2]
@@ -559,7 +583,7 @@ def _swept_instances(cell, limits, growth_budget, cover_excess) -> _Instances:
     # reach bounds from axes 2 and 3 (any configuration), to size the grid
     q0 = np.zeros(N_JOINTS)
     F0 = arm.frames(q0)
-    ap, au = _joint_axes(arm, q0)
+    ap, au = _joint_axes(arm, q0, F0)
     pos0 = np.einsum("kij,kj->ki", F0[frame_ids, :3, :3], local) + F0[frame_ids, :3, 3]
     sel3 = frame_ids == 3
     r3 = _distance_to_axes(pos0, ap[2], au[2]) + radii  # invariant under q3 for frame-3 spheres
@@ -593,9 +617,10 @@ def _swept_instances(cell, limits, growth_budget, cover_excess) -> _Instances:
     if m2.any():
         Q = np.zeros((n2, N_JOINTS))
         Q[:, 1] = q2
-        F = arm.frames(Q)[:, 2]  # (n2, 4, 4)
+        FQ = arm.frames(Q)
+        F = FQ[:, 2]  # (n2, 4, 4)
         P = np.einsum("nij,kj->nki", F[:, :3, :3], local[m2]) + F[:, None, :3, 3]
-        AP, AU = _joint_axes(arm, Q)
+        AP, AU = _joint_axes(arm, Q, FQ)
         rr = _distance_to_axes(P, AP[:, None, 1], AU[:, None, 1]) + radii[m2]
         gr = 0.5 * d2 * rr
         growth = max(growth, float(gr.max()))
@@ -611,9 +636,10 @@ def _swept_instances(cell, limits, growth_budget, cover_excess) -> _Instances:
         r3s = r3[sel3]
         for start in range(0, len(Q), 20000):
             Qc = Q[start:start + 20000]
-            F = arm.frames(Qc)[:, 3]
+            FQ = arm.frames(Qc)
+            F = FQ[:, 3]
             P = np.einsum("nij,kj->nki", F[:, :3, :3], local[sel3]) + F[:, None, :3, 3]
-            AP, AU = _joint_axes(arm, Qc)
+            AP, AU = _joint_axes(arm, Qc, FQ)
             r2 = _distance_to_axes(P, AP[:, None, 1], AU[:, None, 1]) + rad3 + 0.5 * d3 * r3s
             gr = 0.5 * d2 * r2 + 0.5 * d3 * r3s
             growth = max(growth, float(gr.max()))
@@ -627,8 +653,10 @@ def _radius_classes(radii, tol):
     """``(labels (n,), class_radius (m,))``: radii grouped in bands of width ``tol``; a class's radius is
     the largest of its members (so using it never under-states a sphere)."""
     band = np.floor((radii - radii.min()) / tol).astype(np.int64)
-    used, labels = np.unique(band, return_inverse=True)
-    reps = np.full(len(used), -np.inf)
+    present = np.bincount(band) > 0  # the bands used, in order: labels as np.unique's inverse, no sort
+    rank = np.cumsum(present) - 1
+    labels = rank[band]
+    reps = np.full(int(present.sum()), -np.inf)
     np.maximum.at(reps, labels, radii)
     return labels.reshape(-1), reps
 
@@ -659,13 +687,63 @@ def mark_spheres(centres, radii, pitch: float, grow: float = 0.0):
     hi = (C + R[:, None]).max(axis=0) + grow + 2 * t
     origin, n = _world_grid(lo, hi, pitch)
     idx = np.clip(np.rint((C - origin) / pitch - 0.5).astype(np.int64), 0, np.array(n) - 1)
-    occ = np.zeros(n, dtype=bool)
+    masks = np.zeros((len(class_r),) + n, dtype=bool)
+    masks[labels, idx[:, 0], idx[:, 1], idx[:, 2]] = True
+    return origin, _dilate_classes(masks, class_r, pitch, grow)
+
+
+def _dilate_classes(masks, class_r, pitch, grow):
+    """``(nx, ny, nz)`` bool: voxels whose centre is within half a diagonal ``t`` (plus ``grow``) of a sphere
+    of class c centred in a voxel of ``masks[c]`` (radius ``class_r[c]``), the rasterisation error ``t``
+    allowed for: the union over the classes of ``edt(masks[c]) - t - class_r[c] <= t + grow``."""
+    t = 0.5 * math.sqrt(3.0) * pitch
+    occ = np.zeros(masks.shape[1:], dtype=bool)
     for c in range(len(class_r)):
-        mask = np.zeros(n, dtype=bool)
-        sel = labels == c
-        mask[idx[sel, 0], idx[sel, 1], idx[sel, 2]] = True
-        occ |= _edt(mask, pitch) - t - class_r[c] <= t + grow
-    return origin, occ
+        occ |= _edt(masks[c], pitch) - t - class_r[c] <= t + grow
+    return occ
+
+
+@njit(cache=True, nogil=True)
+def _posed_extent(W, frame, local, radii, lo, hi):
+    """Lower (``lo``) and upper (``hi``) corners, updated in place, of the spheres ``local`` (in DH frames
+    ``frame``, radii ``radii``) posed by every ``W[n]`` ((n, 7, 4, 4) world frames): the centre of
+    sphere k in pose n is ``W[n, frame[k], :3, :3] @ local[k] + W[n, frame[k], :3, 3]``, summed in the
+    order of ``np.einsum("nkij,kj->nki", ...)`` then the translation added."""
+    for a in range(W.shape[0]):
+        for k in range(len(frame)):
+            f = frame[k]
+            for i in range(3):
+                c = W[a, f, i, 0] * local[k, 0]
+                c += W[a, f, i, 1] * local[k, 1]
+                c += W[a, f, i, 2] * local[k, 2]
+                c = c + W[a, f, i, 3]
+                if c - radii[k] < lo[i]:
+                    lo[i] = c - radii[k]
+                if c + radii[k] > hi[i]:
+                    hi[i] = c + radii[k]
+
+
+@njit(cache=True, nogil=True)
+def _posed_marks(W, frame, local, labels, origin, pitch, masks):
+    """Set ``masks[labels[k], i, j, l]`` for the voxel nearest each posed sphere centre (see
+    ``_posed_extent``), as ``mark_spheres`` rasterises: ``rint((c - origin) / pitch - 0.5)`` clipped."""
+    n0, n1, n2 = masks.shape[1], masks.shape[2], masks.shape[3]
+    for a in range(W.shape[0]):
+        for k in range(len(frame)):
+            f = frame[k]
+            v0 = _voxel_of(W, a, f, local, k, 0, origin[0], pitch, n0)
+            v1 = _voxel_of(W, a, f, local, k, 1, origin[1], pitch, n1)
+            v2 = _voxel_of(W, a, f, local, k, 2, origin[2], pitch, n2)
+            masks[labels[k], v0, v1, v2] = True
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _voxel_of(W, a, f, local, k, i, o, pitch, n):
+    c = W[a, f, i, 0] * local[k, 0]
+    c += W[a, f, i, 1] * local[k, 1]
+    c += W[a, f, i, 2] * local[k, 2]
+    c = c + W[a, f, i, 3]
+    return min(max(int(np.rint((c - o) / pitch - 0.5)), 0), n - 1)
 
 
 def _edt(mask, spacing):
@@ -711,21 +789,24 @@ class _Meridian:
         self.counts = {}  # (bin, class) -> number of centres
         self.merged = {}  # class -> (nr, nz)
         key = (b * len(class_r) + labels)
-        for kk in np.unique(key):
-            sel = key == kk
-            mask = np.zeros(self.shape, dtype=bool)
-            mask[ir[sel], iz[sel]] = True
-            self.fields[(int(kk // len(class_r)), int(kk % len(class_r)))] = mask
-            self.counts[(int(kk // len(class_r)), int(kk % len(class_r)))] = int(sel.sum())
+        per_key = np.bincount(key)
+        keys = np.flatnonzero(per_key)
+        counts = per_key[keys]
+        # one field per (bin, class) key, stacked in key order; the fields dict holds views of it
+        stack = np.zeros((len(keys),) + self.shape, dtype=bool)
+        slot = (np.cumsum(per_key > 0) - 1)[key]
+        stack[slot, ir, iz] = True
         for c in range(len(class_r)):
-            m = np.zeros(self.shape, dtype=bool)
-            for (bb, cc), mask in self.fields.items():
-                if cc == c:
-                    m |= mask
+            m = stack[(keys % len(class_r)) == c].any(axis=0)
             if m.any():
                 self.merged[c] = _edt(m, spacing)
-        for k in list(self.fields):
-            self.fields[k] = _edt(self.fields[k], spacing)
+        self.stack = np.empty((len(keys),) + self.shape, dtype=np.float32)
+        for i, kk in enumerate(keys):
+            k = (int(kk // len(class_r)), int(kk % len(class_r)))
+            self.stack[i] = _edt(stack[i], spacing)
+            self.fields[k] = self.stack[i]
+            self.counts[k] = int(counts[i])
+        self.keys = [(int(kk // len(class_r)), int(kk % len(class_r))) for kk in keys]
         self.raster_error = 0.5 * math.sqrt(2.0) * spacing
         # Extent of all centres: beyond the fields' raster these give a tight, exact lower bound
         # (a point at meridian radius rho is at least rho - max(rho_i) from every centre, and likewise
@@ -765,33 +846,78 @@ def _angle_gap(phi, start, length):
     return np.where(u <= length, 0.0, np.minimum(u - length, 2 * math.pi - u))
 
 
+@njit(cache=True, nogil=True)
+def _bins_kernel(rho, phi, z, stack, f_index, f_start, f_length, f_radius, h, z0, raster_error, rho_max, z_min,
+                 z_max, thr):
+    """``(m,)`` bool: point i (meridian radius ``rho``, azimuth ``phi``, height ``z``, axis frame) is within
+    ``thr`` of a sphere of an azimuth-bin field revolved over its arc. The fields are tried in the order
+    given (``stack[f_index[f]]``, arc ``f_start[f]`` + [0, ``f_length[f]``], class radius ``f_radius[f]``),
+    each point until one marks it: per point, the same arithmetic as ``_angle_gap`` and
+    ``_Meridian.lookup`` on whole arrays."""
+    two_pi = 2.0 * math.pi
+    half_pi = 0.5 * math.pi
+    nr, nz = stack.shape[1], stack.shape[2]
+    out = np.zeros(len(rho), dtype=np.bool_)
+    for i in range(len(rho)):
+        r = rho[i]
+        for f in range(len(f_index)):
+            length = f_length[f]
+            gap = 0.0
+            if length < _FULL_TURN:
+                u = np.mod(phi[i] - f_start[f], two_pi)
+                if u > length:
+                    gap = min(u - length, two_pi - u)
+            gam = min(gap, half_pi)
+            side = r * math.sin(gam)
+            rc = f_radius[f]
+            if not side - rc <= thr:
+                continue
+            rr = r * math.cos(gam)
+            zz = z[i]
+            ir = min(max(int(np.rint(rr / h)), 0), nr - 1)
+            iz = min(max(int(np.rint((zz - z0) / h)), 0), nz - 1)
+            off = math.hypot(rr - ir * h, zz - (z0 + iz * h))
+            d2 = max(np.float64(stack[f_index[f], ir, iz]) - off - raster_error,
+                     max(max(rr - rho_max, zz - z_max), z_min - zz))
+            d2 = max(d2, 0.0)
+            if math.hypot(side, d2) - rc <= thr:
+                out[i] = True
+                break
+    return out
+
+
 def _world_grid(lo, hi, pitch):
     origin = np.floor(lo / pitch) * pitch
     n = np.maximum(np.ceil((hi - origin) / pitch).astype(np.int64), 1)
     return origin, tuple(int(v) for v in n)
 
 
-def _mark_revolved(cell, inst: _Instances, q1_lo, q1_hi, pitch, allowance, meridian_spacing, bin_width,
-                   class_tol):
-    axis_from_world, world_from_axis = _axis_frame(cell)
-    world_from_base = np.asarray(cell.world_from_base, dtype=np.float64)
-    axis_from_base = axis_from_world @ world_from_base
-    ca = inst.centres @ axis_from_base[:3, :3].T + axis_from_base[:3, 3]
+@dataclass(frozen=True, eq=False)
+class _Revolved:
+    """What the marking of a swept space needs that does not depend on the joint-1 range or the
+    allowance: the instances (joint 1 at 0), their meridian fields and extent (axis frame)."""
+
+    inst: _Instances
+    mer: "_Meridian"
+    class_r: np.ndarray
+    merged: np.ndarray  # (nr, nz) float32: min over classes of (class field - class radius)
+    order: tuple  # (bin, class) keys, the most populated first
+    f_index: np.ndarray  # (F,) slot in mer.stack of each key of order
+    f_radius: np.ndarray  # (F,) class radius of each key of order
+    rho_reach: float  # max(rho + radius)
+    z_lo: float  # min(z - radius)
+    z_hi: float  # max(z + radius)
+    bin_width: float
+    class_tol: float
+
+
+def _revolved(inst: _Instances, ca, meridian_spacing, bin_width, class_tol) -> _Revolved:
+    """The model of ``inst``, whose centres are ``ca`` in the axis frame (``_axis_frame``)."""
     rho = np.hypot(ca[:, 0], ca[:, 1])
     phi = np.arctan2(ca[:, 1], ca[:, 0])
     z = ca[:, 2]
     labels, class_r = _radius_classes(inst.radii, class_tol)
     mer = _Meridian(rho, phi, z, labels, class_r, meridian_spacing, bin_width)
-
-    t = 0.5 * math.sqrt(3.0) * pitch
-    thr = t + allowance
-    reach = float((rho + inst.radii).max()) + thr
-    zlo = float((z - inst.radii).min()) - thr
-    zhi = float((z + inst.radii).max()) + thr
-    corners = np.array([[sx * reach, sy * reach, zz] for sx in (-1, 1) for sy in (-1, 1) for zz in (zlo, zhi)])
-    wc = corners @ world_from_axis[:3, :3].T + world_from_axis[:3, 3]
-    origin, n = _world_grid(wc.min(axis=0), wc.max(axis=0), pitch)
-    full = (q1_hi - q1_lo) >= _FULL_TURN
     # one field for the full turn: min over classes of (distance to the class's centres - radius);
     # the lookup penalty does not depend on the class, so this is the same lower bound in one gather
     merged = None
@@ -799,6 +925,66 @@ def _mark_revolved(cell, inst: _Instances, q1_lo, q1_hi, pitch, allowance, merid
         merged = f - np.float32(class_r[c]) if merged is None else np.minimum(merged, f - np.float32(class_r[c]))
     # fields of the azimuth bins, the most populated first (they mark most voxels, which then drop out)
     order = sorted(mer.fields, key=lambda key: -mer.counts[key])
+    slot = {key: i for i, key in enumerate(mer.keys)}
+    f_index = np.array([slot[key] for key in order], dtype=np.int64)
+    f_radius = np.array([class_r[c] for _, c in order], dtype=np.float64)
+    return _Revolved(inst, mer, class_r, merged, tuple(order), f_index, f_radius,
+                     float((rho + inst.radii).max()), float((z - inst.radii).min()),
+                     float((z + inst.radii).max()), float(bin_width), float(class_tol))
+
+
+_MODELS: dict = {}
+"""The few latest ``_Revolved`` models: ``(id(cell), joint-2/3 limits, pitch) -> (weakref to the cell,
+model)``; dropped with their cell (a cell is immutable, so a model stays valid while it lives)."""
+_MODELS_KEPT = 2
+_MODELS_LOCK = threading.Lock()
+
+
+def _swept_model(cell, limits, p) -> _Revolved:
+    """The ``_Revolved`` model of ``cell`` for ``limits`` (joints 2 and 3 matter) at pitch ``p``: built
+    once and shared by the spaces and searches that differ only in joint 1 (and the allowance)."""
+    lim23 = np.asarray(limits, dtype=np.float64)[1:3]
+    key = (id(cell), lim23.tobytes(), float(p))
+    with _MODELS_LOCK:
+        hit = _MODELS.pop(key, None)
+        if hit is not None and hit[0]() is cell:
+            _MODELS[key] = hit  # most recent last
+            return hit[1]
+    inst = _swept_instances(cell, limits, 0.5 * p, 0.25 * p)
+    axis_from_world, _ = _axis_frame(cell)
+    axis_from_base = axis_from_world @ np.asarray(cell.world_from_base, dtype=np.float64)
+    ca = inst.centres @ axis_from_base[:3, :3].T + axis_from_base[:3, 3]
+    reach = max(float((np.hypot(ca[:, 0], ca[:, 1]) + inst.radii).max()), p)
+    bin_width = min(p / reach, math.pi / 8)  # a limited joint-1 range ends at most about p late
+    model = _revolved(inst, ca, 0.5 * p, bin_width, 0.25 * p)
+
+    def forget(_ref, key=key):  # the cell is gone (may run inside the lock, in garbage collection)
+        _MODELS.pop(key, None)
+
+    with _MODELS_LOCK:
+        _MODELS[key] = (weakref.ref(cell, forget), model)
+        while len(_MODELS) > _MODELS_KEPT:
+            _MODELS.pop(next(iter(_MODELS)), None)
+    return model
+
+
+def _mark_revolved(cell, model: _Revolved, q1_lo, q1_hi, pitch, allowance):
+    axis_from_world, world_from_axis = _axis_frame(cell)
+    inst, mer, class_r, merged = model.inst, model.mer, model.class_r, model.merged
+    f_index, f_radius = model.f_index, model.f_radius
+    arcs = [mer.bin_arc(b, q1_lo, q1_hi) for b, _ in model.order]
+    f_start = np.array([a[0] for a in arcs], dtype=np.float64)
+    f_length = np.array([a[1] for a in arcs], dtype=np.float64)
+
+    t = 0.5 * math.sqrt(3.0) * pitch
+    thr = t + allowance
+    reach = model.rho_reach + thr
+    zlo = model.z_lo - thr
+    zhi = model.z_hi + thr
+    corners = np.array([[sx * reach, sy * reach, zz] for sx in (-1, 1) for sy in (-1, 1) for zz in (zlo, zhi)])
+    wc = corners @ world_from_axis[:3, :3].T + world_from_axis[:3, 3]
+    origin, n = _world_grid(wc.min(axis=0), wc.max(axis=0), pitch)
+    full = (q1_hi - q1_lo) >= _FULL_TURN
     nx, ny, nz = n
     xs = origin[0] + (np.arange(nx) + 0.5) * pitch
     ys = origin[1] + (np.arange(ny) + 0.5) * pitch
@@ -835,22 +1021,8 @@ def _mark_revolved(cell, inst: _Instances, q1_lo, q1_hi, pitch, allowance, merid
             idx = np.flatnonzero(cand)
             r_, ph, z_ = prho[idx], np.arctan2(A[idx, 1], A[idx, 0]), pz[idx]
         if not full:
-            done = np.zeros(len(idx), dtype=bool)
-            for key in order:
-                b, c = key
-                rest = np.flatnonzero(~done)
-                if len(rest) == 0:
-                    break
-                start, length = mer.bin_arc(b, q1_lo, q1_hi)
-                gam = np.minimum(_angle_gap(ph[rest], start, length), 0.5 * math.pi)
-                rr = r_[rest]
-                side = rr * np.sin(gam)
-                near = side - class_r[c] <= thr  # else this field cannot mark it
-                if not near.any():
-                    continue
-                rest, gam, rr, side = rest[near], gam[near], rr[near], side[near]
-                d2 = mer.lookup(mer.fields[key], rr * np.cos(gam), z_[rest])
-                done[rest[np.hypot(side, d2) - class_r[c] <= thr]] = True
+            done = _bins_kernel(r_, ph, z_, mer.stack, f_index, f_start, f_length, f_radius, mer.h, mer.z0,
+                                mer.raster_error, mer.rho_max, mer.z_min, mer.z_max, thr)
             cand = np.zeros(len(cand), dtype=bool)
             cand[idx[done]] = True
         flat[k0 * nxy:(ks[-1] + 1) * nxy] = cand
@@ -969,17 +1141,10 @@ def _swept(kind, cell, limits, allowance, pitch):
     p = _check_pitch(pitch)
     meridian = 0.5 * p
     cover = 0.25 * p
-    budget = 0.5 * p
-    inst = _swept_instances(cell, limits, budget, cover)
-    axis_from_world, _ = _axis_frame(cell)
-    axis_from_base = axis_from_world @ np.asarray(cell.world_from_base, dtype=np.float64)
-    ca = inst.centres @ axis_from_base[:3, :3].T + axis_from_base[:3, 3]
-    reach = max(float((np.hypot(ca[:, 0], ca[:, 1]) + inst.radii).max()), p)
-    bin_width = min(p / reach, math.pi / 8)  # a limited joint-1 range ends at most about p late
-    class_tol = 0.25 * p
-    origin, occ, end_excess, mer = _mark_revolved(
-        cell, inst, float(limits[0, 0]), float(limits[0, 1]), p, allowance, meridian, bin_width, class_tol
-    )
+    model = _swept_model(cell, limits, p)
+    inst, class_tol = model.inst, model.class_tol
+    origin, occ, end_excess, mer = _mark_revolved(cell, model, float(limits[0, 0]), float(limits[0, 1]), p,
+                                                  allowance)
     t = 0.5 * math.sqrt(3.0) * p
     excess = 2 * t + 2 * mer.raster_error + class_tol + inst.max_growth + cover + end_excess
     n2, n3 = inst.n_cells
@@ -1040,6 +1205,88 @@ def restricted_space(cell, limits, allowance=None, *, pitch: float = DEFAULT_PIT
     return _swept("restricted", cell, lim, a, pitch)
 
 
+def _mark_turned(centres, radii, angles, pitch, grow):
+    """``mark_spheres`` of the spheres ``centres`` (k, 3), ``radii`` (k,) turned about the z axis by each
+    of ``angles``: the turned centres ``(cos a x - sin a y, sin a x + cos a y, z)`` never stored."""
+    ca = np.ascontiguousarray(centres, dtype=np.float64)
+    radii = np.ascontiguousarray(radii, dtype=np.float64)
+    c = np.ascontiguousarray(np.cos(angles), dtype=np.float64)
+    s = np.ascontiguousarray(np.sin(angles), dtype=np.float64)
+    t = 0.5 * math.sqrt(3.0) * pitch
+    labels, class_r = _radius_classes(radii, 0.25 * pitch)  # the same classes as of the radii repeated
+    lo = np.full(3, np.inf)
+    hi = np.full(3, -np.inf)
+    _turned_extent(ca, radii, c, s, lo, hi)
+    origin, n = _world_grid(lo - grow - 2 * t, hi + grow + 2 * t, pitch)
+    masks = np.zeros((len(class_r),) + n, dtype=bool)
+    _turned_marks(ca, labels, c, s, np.asarray(origin, dtype=np.float64), float(pitch), masks)
+    return origin, _dilate_classes(masks, class_r, pitch, grow)
+
+
+@njit(cache=True, nogil=True)
+def _turned_extent(ca, radii, c, s, lo, hi):
+    for a in range(len(c)):
+        for k in range(len(radii)):
+            r = radii[k]
+            x = c[a] * ca[k, 0] - s[a] * ca[k, 1]
+            y = s[a] * ca[k, 0] + c[a] * ca[k, 1]
+            z = ca[k, 2]
+            lo[0] = min(lo[0], x - r)
+            lo[1] = min(lo[1], y - r)
+            lo[2] = min(lo[2], z - r)
+            hi[0] = max(hi[0], x + r)
+            hi[1] = max(hi[1], y + r)
+            hi[2] = max(hi[2], z + r)
+
+
+@njit(cache=True, nogil=True)
+def _turned_marks(ca, labels, c, s, origin, pitch, masks):
+    n0, n1, n2 = masks.shape[1], masks.shape[2], masks.shape[3]
+    for a in range(len(c)):
+        for k in range(len(labels)):
+            x = c[a] * ca[k, 0] - s[a] * ca[k, 1]
+            y = s[a] * ca[k, 0] + c[a] * ca[k, 1]
+            z = ca[k, 2]
+            v0 = min(max(int(np.rint((x - origin[0]) / pitch - 0.5)), 0), n0 - 1)
+            v1 = min(max(int(np.rint((y - origin[1]) / pitch - 0.5)), 0), n1 - 1)
+            v2 = min(max(int(np.rint((z - origin[2]) / pitch - 0.5)), 0), n2 - 1)
+            masks[labels[k], v0, v1, v2] = True
+
+
+_POSE_CHUNK = 20000
+"""Configurations posed at a time by the operating space (bounds the (n, 7, 4, 4) frames)."""
+
+
+def _mark_posed(cell, Q, frame, local, radii, pitch, grow):
+    """``mark_spheres`` of the spheres ``local`` (DH frames ``frame``, radii ``radii``) posed at every
+    configuration of ``Q``, without the (n x k) posed centres: each chunk of configurations is posed
+    (world frames as ``world_from_base @ arm.frames``) once for the extent and once for the marks."""
+    world_from_base = np.asarray(cell.world_from_base, dtype=np.float64)
+    frame = np.ascontiguousarray(frame, dtype=np.int64)
+    local = np.ascontiguousarray(local, dtype=np.float64)
+    radii = np.ascontiguousarray(radii, dtype=np.float64)
+    chunks = [slice(i, i + _POSE_CHUNK) for i in range(0, len(Q), _POSE_CHUNK)]
+
+    def posed(chunk):
+        return np.ascontiguousarray(world_from_base @ cell.arm.frames(Q[chunk]))  # (n, 7, 4, 4)
+
+    t = 0.5 * math.sqrt(3.0) * pitch
+    labels, class_r = _radius_classes(radii, 0.25 * pitch)  # the same classes as of the radii repeated
+    lo = np.full(3, np.inf)
+    hi = np.full(3, -np.inf)
+    single = posed(chunks[0]) if len(chunks) == 1 else None  # else posed again for the marks
+    for chunk in chunks:
+        _posed_extent(posed(chunk) if single is None else single, frame, local, radii, lo, hi)
+    lo = lo - grow - 2 * t
+    hi = hi + grow + 2 * t
+    origin, n = _world_grid(lo, hi, pitch)
+    masks = np.zeros((len(class_r),) + n, dtype=bool)
+    for chunk in chunks:
+        _posed_marks(posed(chunk) if single is None else single, frame, local, labels,
+                     np.asarray(origin, dtype=np.float64), float(pitch), masks)
+    return origin, _dilate_classes(masks, class_r, pitch, grow)
+
+
 def operating_space(cell, configurations, *, grow: float = 0.0, pitch: float = DEFAULT_PITCH) -> Space:
     """The operating space: the union of what the given configurations occupy, grown by ``grow``.
 
@@ -1068,13 +1315,8 @@ def operating_space(cell, configurations, *, grow: float = 0.0, pitch: float = D
     fr, local, radii = _frame_spheres(cell, tuple(range(1, N_JOINTS + 1)), cover)
     if len(radii) == 0:
         raise InputError("the arm has no moving geometry (links 1..6 and tool have no shapes)", item="cell")
-    W = np.asarray(cell.world_from_base, dtype=np.float64) @ cell.arm.frames(Q)  # (n, 7, 4, 4)
-    Wf = W[:, fr]  # (n, k, 4, 4)
-    C = np.einsum("nkij,kj->nki", Wf[..., :3, :3], local) + Wf[..., :3, 3]
-    C = C.reshape(-1, 3)
-    R = np.tile(radii, len(Q))
     t = 0.5 * math.sqrt(3.0) * p
-    origin, occ = mark_spheres(C, R, p, grow)
+    origin, occ = _mark_posed(cell, Q, fr, local, radii, p, grow)
     excess = 4 * t + 0.25 * p + cover
     method = (
         f"operating space of {len(Q)} configuration(s), conservative voxels of {p * 1e3:g} mm: every body "

@@ -33,8 +33,8 @@ from . import standards as st
 from .errors import InputError
 from .fences import (
     PANEL_KINDS,
+    _near_voxels,
     crushing_points,
-    distance_to_shape_lower,
     evaluate_panels,
     protective_device_check,
 )
@@ -240,7 +240,7 @@ def panel_distance_ok(verdict) -> bool:
 
 
 def _space_points(space: Space) -> np.ndarray:
-    return space.voxel_centers(space.marked_indices())
+    return space.marked_centers()
 
 
 def keepout_checks(cell, space: Space) -> tuple:
@@ -254,7 +254,7 @@ def keepout_checks(cell, space: Space) -> tuple:
         if len(pts) == 0:
             d = math.inf
         else:
-            d = min(float((distance_to_shape_lower(s, pts) - space.half_diagonal).min()) for s in zone.shapes)
+            d = min(float((_near_voxels(space, s)[1] - space.half_diagonal).min()) for s in zone.shapes)
         d = max(d, 0.0)
         out.append(KeepOutCheck(zone.name, _mm(zone.clearance), _mm(d) if math.isfinite(d) else math.inf,
                                 d >= zone.clearance))
@@ -294,11 +294,21 @@ def device_checks(cell, space: Space) -> tuple:
 
 def _row_configurations(result, limits) -> np.ndarray:
     """``(n, 6)`` joint values of the within-limits rows (clear, below margin, intrusion) of a check that
-    are also within ``limits`` (the soft limits), turn variants once."""
-    qs = [np.asarray(r.q, dtype=np.float64) for r in result.rows
-          if r.status not in ("outside limits", "unreachable") and r.twin_of < 0
-          and np.isfinite(np.asarray(r.q, dtype=np.float64)).all() and _within(np.asarray(r.q), limits)]
-    return np.array(qs, dtype=np.float64).reshape(-1, N_JOINTS)
+    are also within ``limits`` (the soft limits), in row order, each geometry once: a turn variant (the
+    same posed bodies as its twin) only when its twin row is not used itself (outside the limits)."""
+    rows = result.rows
+    if not rows:
+        return np.zeros((0, N_JOINTS))
+    q = np.array([r.q for r in rows], dtype=np.float64).reshape(-1, N_JOINTS)
+    usable = np.array([r.status not in ("outside limits", "unreachable") for r in rows], dtype=bool)
+    usable &= np.isfinite(q).all(axis=1) & _within_rows(q, limits)
+    twin = np.array([r.twin_of for r in rows], dtype=np.int64)
+    own = twin < 0
+    use = usable & own
+    stand_in = np.flatnonzero(usable & ~own)
+    stand_in = stand_in[~usable[twin[stand_in]]]  # usable variants of twins that are not
+    use[stand_in[np.unique(twin[stand_in], return_index=True)[1]]] = True  # the first of each twin
+    return q[use]
 
 
 # ====================================================================== the check
@@ -393,10 +403,9 @@ def _no_suggestion(reason, blocking, method="") -> AxisSuggestion:
 def _search_profile(cell, limits, pitch):
     """Voxel centres (axis frame, (k, 3)) of a conservative cover of the restricted space over joint-1
     range [0, step] (axis frame: z along joint 1, origin on it), and the radius bound ``rho_max``."""
-    from .space import _axis_frame, _swept_instances, mark_spheres
+    from .space import _axis_frame, _mark_turned, _swept_model
 
-    cover = 0.25 * pitch
-    inst = _swept_instances(cell, limits, 0.5 * pitch, cover)
+    inst = _swept_model(cell, limits, pitch).inst  # _swept_instances(cell, limits, 0.5 * pitch, 0.25 * pitch)
     axis_from_world, world_from_axis = _axis_frame(cell)
     axis_from_base = axis_from_world @ np.asarray(cell.world_from_base, dtype=np.float64)
     ca = inst.centres @ axis_from_base[:3, :3].T + axis_from_base[:3, 3]
@@ -407,14 +416,8 @@ def _search_profile(cell, limits, pitch):
     n = max(1, int(math.ceil(step * float(rho.max()) / (0.5 * pitch))))
     d = step / n
     angles = np.arange(n + 1) * d
-    c, s = np.cos(angles), np.sin(angles)
-    X = c[:, None] * ca[None, :, 0] - s[:, None] * ca[None, :, 1]
-    Y = s[:, None] * ca[None, :, 0] + c[:, None] * ca[None, :, 1]
-    Z = np.broadcast_to(ca[None, :, 2], X.shape)
-    C = np.stack([X, Y, Z], axis=-1).reshape(-1, 3)
-    R = np.tile(inst.radii + 0.5 * d * rho, n + 1)
     allowance = float(cell.stopping_allowance)
-    origin, occ = mark_spheres(C, R, pitch, allowance)
+    origin, occ = _mark_turned(ca, inst.radii + 0.5 * d * rho, angles, pitch, allowance)
     centres = origin + (np.argwhere(occ) + 0.5) * pitch
     return centres, world_from_axis
 
@@ -458,16 +461,58 @@ def _deg(x) -> float:
 
 def _clear_rows(result):
     """``{target: [(branch, q (6,)), ...]}`` of the clear rows, in target order (every target listed)."""
-    out = {t.name: [] for t in result.cell.targets}
+    out = _ClearRows((t.name, []) for t in result.cell.targets)
     for r in result.rows:
         out.setdefault(r.target, [])
-        if r.status == _CLEAR and np.isfinite(np.asarray(r.q, dtype=np.float64)).all():
+    rows = [r for r in result.rows if r.status == _CLEAR]
+    finite = np.isfinite(np.array([r.q for r in rows], dtype=np.float64).reshape(-1, N_JOINTS)).all(axis=1)
+    for r, ok in zip(rows, finite.tolist()):
+        if ok:
             out[r.target].append((r.branch if not r.turn else f"{r.branch} (turn {r.turn})", np.asarray(r.q)))
     return out
 
 
 def _within(q, lim) -> bool:
     return bool(np.all((q >= lim[:, 0] - 1e-12) & (q <= lim[:, 1] + 1e-12)))
+
+
+def _within_rows(q, lim) -> np.ndarray:
+    """``(n,)`` bool: ``_within`` of every row of ``q`` (n, k) against ``lim`` (k, 2)."""
+    return np.all((q >= lim[:, 0] - 1e-12) & (q <= lim[:, 1] + 1e-12), axis=1)
+
+
+class _ClearRows(dict):
+    """``{target: [(branch, q), ...]}`` (``_clear_rows``), with its ``_ClearIndex`` built once."""
+
+    @property
+    def index(self) -> "_ClearIndex":
+        if not hasattr(self, "_index"):
+            self._index = _ClearIndex(self)
+        return self._index
+
+
+class _ClearIndex:
+    """The clear rows of ``_clear_rows`` as arrays: ``q`` (m, 6) in target order then row order,
+    ``target`` (m,) the index of each row's target in ``names``."""
+
+    def __init__(self, clear):
+        self.names = tuple(clear)
+        rows = [(t, q) for t, (_, entries) in enumerate(clear.items()) for _, q in entries]
+        self.q = np.array([q for _, q in rows], dtype=np.float64).reshape(-1, N_JOINTS)
+        self.target = np.array([t for t, _ in rows], dtype=np.int64)
+        self.branches = [b for entries in clear.values() for b, _ in entries]
+
+    def first_within(self, lim):
+        """``(picks, missing)`` as ``_covering``: per target (in order), the branch of its first clear row
+        within ``lim``, or the target in ``missing``."""
+        inside = np.flatnonzero(_within_rows(self.q, lim))
+        first = {}
+        for k in inside[np.unique(self.target[inside], return_index=True)[1]]:
+            first[int(self.target[k])] = self.branches[k]
+        picks, missing = [], []
+        for t, name in enumerate(self.names):
+            (missing.append(name) if t not in first else picks.append((name, first[t])))
+        return picks, missing
 
 
 def _search(cell, limits, grid, clear, risk, search_pitch):
@@ -493,13 +538,7 @@ def _search(cell, limits, grid, clear, risk, search_pitch):
     def chosen(lo, hi):
         lim = limits.copy()
         lim[0] = [grid[lo], grid[hi + 1]]
-        picks, missing = [], []
-        for target, rows in clear.items():
-            hit = next(((b, q) for b, q in rows if _within(q, lim)), None)
-            if hit is None:
-                missing.append(target)
-            else:
-                picks.append((target, hit[0]))
+        picks, missing = _covering(clear, lim)
         return lim, picks, missing
 
     candidates = []
@@ -634,11 +673,10 @@ def suggest_axis_limits(cell, result, *, limits=None, pitch: float = DEFAULT_PIT
 
 
 def _covering(clear, cand):
-    picks, missing = [], []
-    for target, rows in clear.items():
-        hit = next(((b, q) for b, q in rows if _within(q, cand)), None)
-        (missing.append(target) if hit is None else picks.append((target, hit[0])))
-    return picks, missing
+    """``(picks, missing)``: ``(target, branch)`` of every target's first clear row within ``cand``, and
+    the targets that have none."""
+    index = clear.index if isinstance(clear, _ClearRows) else _ClearIndex(clear)
+    return index.first_within(cand)
 
 
 def _nearest_azimuth(cell, space, panels, keepouts):
@@ -652,10 +690,10 @@ def _nearest_azimuth(cell, space, panels, keepouts):
         for k, shape in enumerate(zone.shapes):
             panel = zone.panels[k] if k < len(zone.panels) else zone.name
             if panel in names or zone.name in names:
-                d = distance_to_shape_lower(shape, pts)
+                index, d = _near_voxels(space, shape)
                 i = int(np.argmin(d))
                 if d[i] < best:
-                    best, at = float(d[i]), pts[i]
+                    best, at = float(d[i]), pts[index[i]]
     if at is None:
         return None
     axis_from_world, _ = _axis_frame(cell)
