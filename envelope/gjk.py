@@ -306,7 +306,7 @@ def gjk_batch(Va, Ra, ta, Vb, Rb, tb, dist, pa, pb, state):
     for i in range(Ra.shape[0]):
         pose_points(Va, Ra[i], ta[i], PA)
         pose_points(Vb, Rb[i], tb[i], PB)
-        dist[i], state[i] = gjk_points(PA, PB, pa[i], pb[i], W)
+        dist[i], state[i] = gjk_points(PA, PB, pa[i], pb[i], W, np.inf)
 
 
 def distance(Va, Ra, ta, Vb, Rb, tb):
@@ -453,7 +453,7 @@ def penetration_batch(Va, Ra, ta, Vb, Rb, tb, depth, pa, pb, ok):
     for i in range(Ra.shape[0]):
         pose_points(Va, Ra[i], ta[i], PA)
         pose_points(Vb, Rb[i], tb[i], PB)
-        _, state = gjk_points(PA, PB, a, b, W)
+        _, state = gjk_points(PA, PB, a, b, W, np.inf)
         ok[i] = False
         if state != TOUCHING:
             continue

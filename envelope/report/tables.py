@@ -11,10 +11,13 @@ import dataclasses
 import io
 import json
 from dataclasses import dataclass
+from itertools import chain, repeat
+from operator import attrgetter
 
 import numpy as np
 
 from ..units import to_degrees, to_mm
+from . import textnum
 from .files import AtomicWriter, write_text_atomic
 from .motions import CSV_MOTION_COLUMNS, motion_ranks, motion_record, motion_rows
 from .motions import csv_cells as motion_csv_cells
@@ -117,8 +120,21 @@ class RowColumns:
     limit_worst_deg: np.ndarray
 
 
+def _stacked(items, name: str, dtype, shape: tuple | None = None) -> np.ndarray:
+    """``np.stack([np.asarray(getattr(x, name), dtype=dtype).reshape(shape) for x in items])`` (no
+    reshape if ``shape`` is None), converted by numpy in one call where the arrays share one shape."""
+    arrays = [getattr(x, name) for x in items]
+    try:
+        out = np.array(arrays, dtype=dtype)  # ValueError for arrays of differing shapes
+        if out.ndim == 0 or len(out) != len(arrays) or not len(arrays):
+            raise ValueError("not one array per item")
+    except (ValueError, TypeError):  # shapes that differ but may reshape alike: one by one
+        return np.stack([np.asarray(a, dtype=dtype) if shape is None else np.asarray(a, dtype=dtype).reshape(shape) for a in arrays])
+    return out if shape is None else out.reshape(len(arrays), *shape)
+
+
 def _stack(rows, name: str) -> np.ndarray:
-    return np.stack([np.asarray(getattr(r, name), dtype=np.float64) for r in rows])
+    return _stacked(rows, name, np.float64)
 
 
 def worst_limits(excess) -> tuple:
@@ -141,7 +157,7 @@ def row_columns(rows) -> RowColumns | None:
     try:
         q, excess = _stack(rows, "q"), _stack(rows, "limit_excess")
         wb, wo = _stack(rows, "witness_body"), _stack(rows, "witness_other")
-        scalars = [np.array([float(getattr(r, a)) for r in rows]) for a in ("clearance", "required", "margin")]
+        scalars = [np.fromiter(map(float, map(attrgetter(a), rows)), np.float64, len(rows)) for a in ("clearance", "required", "margin")]
     except (ValueError, TypeError):
         return None
     if any(a.ndim != 2 for a in (q, excess, wb, wo)) or excess.shape[1] == 0 or wb.shape != wo.shape:
@@ -227,6 +243,87 @@ def csv_target_rows(rows, start: int, rank) -> list:
     return out
 
 
+class _CsvCells(dict):
+    """``cells[value]``: the text the ``csv.writer`` of ``csv_text`` writes for the cell ``value`` (a
+    str), found by writing it once and kept. Quoting (``QUOTE_MINIMAL``) is decided cell by cell, so a
+    row's text is its cells' texts joined by ``,``. ``cells.each(values)``: of any values."""
+
+    def __init__(self):
+        super().__init__()
+        self._buf = io.StringIO()
+        self._writer = csv.writer(self._buf, lineterminator="\n")
+
+    def written(self, value) -> str:
+        self._buf.seek(0)
+        self._buf.truncate()
+        self._writer.writerow([value, ""])  # "<cell>,\n": the second, empty cell is written as nothing
+        return self._buf.getvalue()[:-2]
+
+    def __missing__(self, key: str) -> str:
+        text = self[key] = self.written(key)
+        return text
+
+    def each(self, values) -> list:
+        """The cell text of each of ``values``."""
+        return [self[v] if type(v) is str else str(v) if type(v) is int else self.written(v) for v in values]
+
+
+def _fixed_rows(values) -> list:
+    """``",".join(fmt_list(row))`` of each row of ``values`` (2-D; 1-D: one value a row)."""
+    texts = textnum.row_texts(values, DECIMALS, "fixed", brackets=False)
+    if texts is None:  # a number beyond the compiled formatter's range
+        values = np.asarray(values, dtype=np.float64)
+        values = values.reshape(len(values), -1)
+        flat, m = fmt_list(values), values.shape[1]
+        texts = [",".join(flat[k * m:(k + 1) * m]) for k in range(len(values))]
+    return texts
+
+
+def csv_target_text(rows, start: int, rank, cells: _CsvCells | None = None) -> str | None:
+    """The lines of clearance.csv of ``rows`` (``result.rows[start:start + len(rows)]``; ``rank`` of all
+    rows), each with its ``\\n``, as ``csv_target_rows`` then the ``csv.writer`` of ``csv_text`` make
+    them, with the numbers of all rows formatted in one compiled call; None where ``row_columns``
+    gives none (or a number block is empty), for the caller to write the cells of ``csv_target_rows``.
+    ``cells`` keeps the texts of string cells across calls."""
+    cols = row_columns(rows)
+    if cols is None or cols.q_deg.shape[1] == 0 or cols.witness_body_mm.shape[1] == 0:
+        return None
+    cells = _CsvCells() if cells is None else cells
+    n = len(rows)
+
+    def texts(attr):
+        return cells.each(map(attrgetter(attr), rows))
+
+    joints = cols.limit_joint.tolist()
+    excess = _fixed_rows(cols.limit_worst_deg)
+    tail = ",".join(cells.each(("target", *([""] * (len(CSV_MOTION_COLUMNS) - 1))))) + "\n"
+    columns = (
+        list(map(str, range(start, start + n))),
+        cells.each(rank[start:start + n]),
+        texts("target"),
+        texts("target_frame"),
+        texts("branch"),
+        texts("turn"),
+        texts("twin_of"),
+        texts("status"),
+        texts("clearance_status"),
+        _fixed_rows(cols.q_deg),
+        cells.each(j or "" for j in joints),
+        [e if j else "" for e, j in zip(excess, joints)],
+        _singular_texts(rows, lambda names: cells.each([";".join(names)])[0]),
+        _fixed_rows(np.stack([cols.clearance_mm, cols.required_mm, cols.margin_mm], axis=1)),
+        texts("closest_body"),
+        texts("closest_other"),
+        _fixed_rows(np.concatenate([cols.witness_body_mm, cols.witness_other_mm], axis=1)),
+        texts("note"),
+    )
+    parts = []
+    for column in columns:
+        parts += [column, repeat(",")]
+    parts[-1] = repeat("," + tail)
+    return "".join(chain.from_iterable(zip(*parts)))
+
+
 def csv_text(result) -> str:
     """clearance.csv as text: one row per target x branch, in ``result.rows`` order, then one row per
     motion (``envelope.sweep.MotionRow``), in ``result.motions`` order."""
@@ -234,8 +331,13 @@ def csv_text(result) -> str:
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(CSV_COLUMNS)
     rank = ranks(result)
+    cells = _CsvCells()
     for start, chunk in row_chunks(result.rows):
-        w.writerows(csv_target_rows(chunk, start, rank))
+        text = csv_target_text(chunk, start, rank, cells)
+        if text is None:
+            w.writerows(csv_target_rows(chunk, start, rank))
+        else:
+            buf.write(text)
     motion_rank = motion_ranks(result)
     frames = {t.name: t.frame for t in result.cell.targets}
     for i, m in motion_rows(result):  # after the target rows, in sweep order; ``rank`` among motions
@@ -276,7 +378,10 @@ def lazy_pairs(row):
     """``(defs, result, zone_kinds)`` of a row whose pairs are a lazy sequence from ``run_check``
     (``check.PairRows``: definitions, one ``ClearanceResult``, zone kinds), else None."""
     pairs = row.pairs
-    defs, res, zone_kinds = (getattr(pairs, a, None) for a in ("defs", "result", "zone_kinds"))
+    try:
+        defs, res, zone_kinds = pairs.defs, pairs.result, pairs.zone_kinds
+    except AttributeError:
+        return None
     if defs is not None and zone_kinds is not None and hasattr(res, "distance") and hasattr(res, "status"):
         return defs, res, zone_kinds
     return None
@@ -336,17 +441,27 @@ def pair_definitions(result, cache: dict | None = None, statuses: list | None = 
 
     Every pair status met that ``statuses`` (a list) lacks is appended to it.
     """
+    from ..clearance import STATUS_NAMES
+
     defs, index = [], {}
     cache = {} if cache is None else cache
     seen_shared: dict = {}  # id -> the shared key list itself (held, so the id stays unique)
     pending: list = []  # status code arrays of lazy rows not yet added to ``statuses``
+    # a lazy row can only add a status name that ``statuses`` lacks (an invalid code fails when the
+    # row is written): with every name there, its codes need no reading
+    collect = statuses is not None and not all(name in statuses for name in STATUS_NAMES)
+    last_defs = None  # the shared definitions of the previous lazy row (the usual case: all the same)
     for row in result.rows:
         lazy = lazy_pairs(row)
         if lazy is not None:
+            if collect:
+                pending.append(np.asarray(lazy[1].status, dtype=np.int64).reshape(-1))
+                if len(pending) >= BULK_ROWS:
+                    _add_statuses(statuses, pending)
+            if lazy[0] is last_defs:
+                continue  # the same shared definitions as the row before
+            last_defs = lazy[0]
             keys = shared_keys(lazy[0], lazy[2], cache)
-            pending.append(np.asarray(lazy[1].status, dtype=np.int64).reshape(-1))
-            if len(pending) >= BULK_ROWS:
-                _add_statuses(statuses, pending)
         else:
             _add_statuses(statuses, pending)  # keep first-seen order across both kinds of rows
             table = pair_table(row, cache)
@@ -383,11 +498,15 @@ def _add_statuses(statuses: list | None, pending: list) -> None:
     if pending and statuses is not None:
         from ..clearance import STATUS_NAMES
 
-        codes, first = np.unique(np.concatenate(pending), return_index=True)
-        for code in codes[np.argsort(first)].tolist():
-            name = STATUS_NAMES[code]
-            if name not in statuses:
-                statuses.append(name)
+        codes = np.concatenate(pending)
+        n = len(STATUS_NAMES)
+        known = all(name in statuses for name in STATUS_NAMES)  # the usual case: nothing to add
+        if not (known and (codes.size == 0 or (codes.min() >= -n and codes.max() < n))):
+            codes, first = np.unique(codes, return_index=True)
+            for code in codes[np.argsort(first)].tolist():
+                name = STATUS_NAMES[code]
+                if name not in statuses:
+                    statuses.append(name)
     pending.clear()
 
 
@@ -433,26 +552,35 @@ def _row_pairs(row, index: dict, status_codes: list, n_defs: int, witnesses: str
     }
 
 
+_ROW_TEXT_FIELDS = (
+    ("target", "target"),
+    ("frame", "target_frame"),
+    ("branch", "branch"),
+    ("status", "status"),
+    ("clearance_status", "clearance_status"),
+    ("closest_body", "closest_body"),
+    ("closest_other", "closest_other"),
+    ("note", "note"),
+)
+"""``(key, BranchRow attribute)`` of the fields of a clearance.json row written as they are."""
+_ROW_INT_FIELDS = (("turn", "turn"), ("twin_of", "twin_of"))
+"""``(key, BranchRow attribute)`` of the fields written as ``int(...)``."""
+_ROW_NUMBER_FIELDS = (
+    "q_deg", "limit_excess_deg", "limit_joint", "clearance_mm", "required_mm", "margin_mm", "witness_body_mm", "witness_other_mm",
+)
+"""The keys of the numbers of a row, converted and rounded by the caller of ``_record_fields``."""
+
+
 def _record_fields(i, rank, row, **numbers) -> dict:
     """The fields of one clearance.json row but ``pairs``: the row's own texts, and ``numbers``
-    (already converted and rounded: q_deg, limit_excess_deg, limit_joint, clearance_mm, required_mm,
-    margin_mm, witness_body_mm, witness_other_mm), so the bulk and the one-row paths share one layout."""
-    return {
-        "row": i,
-        "rank": rank,
-        "target": row.target,
-        "frame": row.target_frame,
-        "branch": row.branch,
-        "turn": int(row.turn),
-        "twin_of": int(row.twin_of),
-        "status": row.status,
-        "clearance_status": row.clearance_status,
-        "singular": singular_names(row),
-        "closest_body": row.closest_body,
-        "closest_other": row.closest_other,
-        "note": row.note,
-        **numbers,
-    }
+    (already converted and rounded: ``_ROW_NUMBER_FIELDS``), so the bulk and the one-row paths share
+    one layout (``_ROW_TEXT_FIELDS``, ``_ROW_INT_FIELDS``; ``json_row_lines``)."""
+    rec = {"row": i, "rank": rank}
+    rec.update({key: getattr(row, attr) for key, attr in _ROW_TEXT_FIELDS})
+    rec.update({key: int(getattr(row, attr)) for key, attr in _ROW_INT_FIELDS})
+    rec["singular"] = singular_names(row)
+    rec.update(numbers)
+    return rec
 
 
 def row_record(i, row, rank, index, status_codes, n_defs, witnesses="findings", cache=None) -> dict:
@@ -477,182 +605,220 @@ ENCODE = json.JSONEncoder(sort_keys=True, separators=(",", ":"), allow_nan=False
 """One compact clearance.json line: ``json.dumps(value, sort_keys=True, separators=(",", ":"),
 allow_nan=False)``, with the encoder built once."""
 
-_RESULT_FIELDS = ("distance", "distance_upper", "depth_known", "pruned", "status", "witness_body", "witness_other")
+def _same_as_twin(twins, arrays) -> np.ndarray:
+    """``rep[u]``: the first of the results whose arrays are bitwise equal to result u's, following
+    ``twins[u]`` (an earlier result, or -1) while they are; ``arrays`` (R, ...) each, stacked."""
+    twins = np.asarray(twins, dtype=np.int64)
+    rep = np.arange(len(twins))
+    k = np.flatnonzero(twins >= 0)
+    if len(k) == 0:
+        return rep
+    t = twins[k]
+    same = textnum.equal_rows(arrays, k, t)
+    rep[k[same]] = t[same]
+    while True:  # twins are earlier rows: chains end
+        nxt = rep[rep]
+        if np.array_equal(nxt, rep):
+            return rep
+        rep = nxt
 
 
-def _memory_key(res) -> tuple:
-    """Equal for two ``ClearanceResult`` whose pair arrays are the same memory (a turn variant and its
-    twin are views of one configuration's results), so their pairs entry is the same text."""
-    out = []
-    for name in _RESULT_FIELDS:
-        a = np.asarray(getattr(res, name))
-        out.append((a.__array_interface__["data"][0], a.shape, a.strides, a.dtype.str))
-    return tuple(out)
-
-
-_ENCODE_NONFINITE = json.JSONEncoder(separators=(",", ":")).encode
-"""Like ``ENCODE`` but writing non-finite floats as ``NaN`` / ``Infinity`` / ``-Infinity`` (for numbers
-only, where ``list_texts`` then makes them ``null``)."""
-
-
-def list_texts(values, decimals: int | None = DECIMALS) -> list:
-    """``[ENCODE(rnd_list(v, decimals)) for v in values]`` for the rows of a 2-D array, encoded at once.
-
-    ``decimals=None``: integers or booleans, written as they are (``ENCODE(v.tolist())``). One call
-    encodes the nested list; its text splits at ``],[`` because the rows hold numbers only.
-    """
-    values = np.asarray(values)
-    if len(values) == 0:
-        return []
-    if decimals is None and values.ndim == 2 and values.shape[1] and ((values >= 0) & (values <= 9)).all():
-        return _digit_texts(values)
-    if decimals is None:
-        text = ENCODE(values.tolist())
-    else:
-        rounded = np.round(values.astype(np.float64), decimals) + 0.0
-        text = _ENCODE_NONFINITE(rounded.tolist())
-        if not np.isfinite(rounded).all():  # rnd_list writes every non-finite entry as null
-            text = text.replace("-Infinity", "null").replace("Infinity", "null").replace("NaN", "null")
-    return ["[" + part + "]" for part in text[2:-2].split("],[")]
-
-
-def _digit_texts(values) -> list:
-    """``[ENCODE(v.tolist()) for v in values]`` for a 2-D array of the integers 0..9 (flags and status
-    codes), built as bytes: ``[d,d,...,d]``, one ASCII digit per value."""
-    n, m = values.shape
-    text = np.full((n, 2 * m + 1), ord(","), dtype=np.uint8)
-    text[:, 0], text[:, -1] = ord("["), ord("]")
-    text[:, 1::2] = values.astype(np.uint8) + ord("0")
-    line = text.tobytes().decode("ascii")
-    width = 2 * m + 1
-    return [line[k * width:(k + 1) * width] for k in range(n)]
-
-
-def _pairs_texts_of(results, index, status_codes, n_defs, witnesses, cache, defs, zone_kinds) -> list:
-    """``ENCODE`` of the pairs entries (``_row_pairs``) of ``results`` (ClearanceResult of one
-    configuration each, all over the pair definitions ``defs``), every column converted and encoded
-    for all results at once. Raises ValueError if the results differ in size."""
+def _pair_arrays_of(results, twins, index, status_codes, n_defs, witnesses, cache, defs, zone_kinds) -> tuple:
+    """``(arrays, rep, unique)``: the pairs entries (``_row_pairs``) of ``results`` (ClearanceResult of
+    one configuration each, all over the pair definitions ``defs``), every column converted for all
+    results at once, as ``textnum.PairArrays`` of the results ``unique``; ``rep[u]``: the result whose
+    entry result u's is. ``twins[u]``: an earlier result that is likely the same (a turn variant's
+    twin) or -1; where it is bitwise the same, it is not written again. Raises ValueError if the
+    results differ in size or a number is beyond the compiled formatter's range."""
     from ..clearance import STATUS_NAMES
 
-    def stacked(name, dtype, shape):
-        return np.stack([np.asarray(getattr(r, name), dtype=dtype).reshape(shape) for r in results])
-
-    status = stacked("status", np.int64, -1)
+    status = _stacked(results, "status", np.int64, (-1,))
     _add_statuses(status_codes, [status.ravel()])
     code_of = {s: k for k, s in enumerate(status_codes)}
     codes = np.array([code_of.get(s, -1) for s in STATUS_NAMES], dtype=np.int64)[status]
     clear = np.array([s == "clear" for s in STATUS_NAMES], dtype=bool)[status]
-    pruned = stacked("pruned", bool, -1)
+    pruned = _stacked(results, "pruned", bool, (-1,))
+    depth_known = _stacked(results, "depth_known", bool, (-1,))
+    distance = _stacked(results, "distance", np.float64, (-1,))
+    distance_upper = _stacked(results, "distance_upper", np.float64, (-1,))
+    witness_body = _stacked(results, "witness_body", np.float64, (-1, 3))
+    witness_other = _stacked(results, "witness_other", np.float64, (-1, 3))
     keep = ~pruned if witnesses == "all" else (~pruned & ~clear)
+    rep = _same_as_twin(twins, (status, pruned, depth_known, distance, distance_upper, witness_body, witness_other))
+    unique = np.flatnonzero(rep == np.arange(len(rep)))
+    keep = keep[unique]
     who, which = np.nonzero(keep)  # row-major: each result's kept pairs together, in pair order
-    bounds = np.concatenate([[0], np.cumsum(np.bincount(who, minlength=len(results)))]).tolist()
-    witness_body = rnd_list(to_mm(stacked("witness_body", np.float64, (-1, 3))[who, which]))
-    witness_other = rnd_list(to_mm(stacked("witness_other", np.float64, (-1, 3))[who, which]))
-    which = which.tolist()
-    # the keys in sorted order, as ENCODE writes them
-    head = '{"depth_known":'
-    columns = zip(
-        list_texts(stacked("depth_known", bool, -1).astype(np.int8), None),
-        list_texts(to_mm(stacked("distance", np.float64, -1))),
-        list_texts(to_mm(stacked("distance_upper", np.float64, -1))),
-        list_texts(pruned.astype(np.int8), None),
-        list_texts(codes, None),
-    )
+    at = unique[who]
     pair = ENCODE(pair_positions(shared_keys(defs, zone_kinds, cache), True, index, n_defs, cache))
-    out = []
-    for u, (depth_known, distance, upper, pruned_text, status_text) in enumerate(columns):
-        a, b = bounds[u], bounds[u + 1]
-        if a < b:
-            witness = ENCODE(which[a:b]), ENCODE(witness_body[a:b]), ENCODE(witness_other[a:b])
-        else:
-            witness = "[]", "[]", "[]"
-        out.append(
-            f'{head}{depth_known},"distance_mm":{distance},"distance_upper_mm":{upper},"pair":{pair},'
-            f'"pruned":{pruned_text},"status":{status_text},"witness":{witness[0]},'
-            f'"witness_body_mm":{witness[1]},"witness_other_mm":{witness[2]}}}'
-        )
-    return out
+    arrays = textnum.PairArrays(
+        depth_known[unique], to_mm(distance[unique]), to_mm(distance_upper[unique]), pruned[unique], codes[unique],
+        keep, to_mm(witness_body[at, which]), to_mm(witness_other[at, which]), pair, DECIMALS,
+    )
+    if not (arrays.ok and arrays.in_range()):
+        raise ValueError("a pair number beyond the compiled formatter's range")
+    return arrays, rep, unique
 
 
-def pairs_texts(rows, index, status_codes, n_defs, witnesses, cache, start: int = 0) -> list:
-    """``ENCODE`` of each row's pairs entry (as ``_row_pairs`` makes it), or None for a row whose pairs
-    are not a lazy ``run_check`` sequence (or do not stack): those go pair by pair.
+def pair_entries(rows, index, status_codes, n_defs, witnesses, cache, start: int = 0) -> tuple:
+    """``(arrays, entry_of, copy_of, extra)``, the pairs entry of each row (as ``_row_pairs`` makes
+    it) for ``textnum.fill_pairs``: row k's is result ``entry_of[k]`` of ``arrays`` (a
+    ``textnum.PairArrays``, or None), else the same as row ``copy_of[k]``'s (an earlier row), else
+    ``extra[k]`` (``ENCODE`` of the entry, ASCII bytes), which is None for a row whose pairs are not a
+    lazy ``run_check`` sequence (or do not stack, or hold a number beyond the compiled formatter's
+    range): those go pair by pair.
 
-    ``rows`` are ``result.rows[start:...]``. A turn variant whose results are the same memory as its
-    twin's (``twin_of``, in ``rows``) reuses the twin's text.
+    ``rows`` are ``result.rows[start:...]``. A turn variant whose results are bitwise those of its twin
+    (``twin_of``, in ``rows``) copies the twin's entry.
     """
-    texts = [None] * len(rows)
-    groups: dict = {}  # id(defs) -> (defs, zone_kinds, [[result, row positions, memory key or None]])
-    slot_of: dict = {}  # row position -> (its group's list, the entry of its result)
-    for k, row in enumerate(rows):
-        lazy = lazy_pairs(row)
+    n = len(rows)
+    entry_of, copy_of, extra = np.full(n, -1, dtype=np.int64), np.full(n, -1, dtype=np.int64), [None] * n
+    groups: dict = {}  # id(defs) -> (defs, zone_kinds, row positions, results, twin of each result)
+    slot_of: dict = {}  # row position -> (its group, the position of its result there)
+    lazies = list(map(lazy_pairs, rows))
+    first = lazies[0] if lazies else None
+    if first is not None and all(lazy is not None and lazy[0] is first[0] for lazy in lazies):
+        # the usual case, every row over the same definitions: one group, twins found at once
+        twin = np.fromiter(map(int, map(attrgetter("twin_of"), rows)), np.int64, n) - start
+        k = np.arange(n)
+        twins = np.where((twin >= 0) & (twin < k), twin, -1)  # earlier rows only
+        groups[id(first[0])] = (first[0], first[2], k, [lazy[1] for lazy in lazies], twins)
+        lazies = ()
+    for k, (row, lazy) in enumerate(zip(rows, lazies)):
         if lazy is None:
             continue
         defs, res, zone_kinds = lazy
-        members = groups.setdefault(id(defs), (defs, zone_kinds, []))[2]
+        group = groups.get(id(defs))
+        if group is None:
+            group = groups[id(defs)] = (defs, zone_kinds, [], [], [])
         twin = slot_of.get(int(row.twin_of) - start)
-        if twin is not None and twin[0] is members:
-            entry = twin[1]
-            if entry[2] is None:
-                entry[2] = _memory_key(entry[0])
-            if entry[2] == _memory_key(res):
-                entry[1].append(k)
-                slot_of[k] = twin
-                continue
-        members.append([res, [k], None])
-        slot_of[k] = (members, members[-1])
-    for defs, zone_kinds, members in groups.values():
+        group[4].append(twin[1] if twin is not None and twin[0] is group else -1)
+        slot_of[k] = (group, len(group[2]))
+        group[2].append(k)
+        group[3].append(res)
+    main = None
+    for defs, zone_kinds, where, results, twins in groups.values():
         try:
-            encoded = _pairs_texts_of([m[0] for m in members], index, status_codes, n_defs, witnesses, cache, defs, zone_kinds)
-        except ValueError:  # results of differing sizes
+            arrays, rep, unique = _pair_arrays_of(results, twins, index, status_codes, n_defs, witnesses, cache, defs, zone_kinds)
+        except ValueError:  # results of differing sizes, or out of range: pair by pair
             continue
-        for (_, where, _), text in zip(members, encoded):
-            for k in where:
-                texts[k] = text
-    return texts
+        where = np.asarray(where, dtype=np.int64)
+        if main is None:  # written into place
+            main = arrays
+            entry_of[where[unique]] = np.arange(len(unique))
+            copied = rep != np.arange(len(rep))
+            copy_of[where[copied]] = where[rep[copied]]
+        else:  # rows over other definitions (not from one run_check): given as text
+            entries = arrays.entries()
+            slot = np.empty(len(rep), dtype=np.int64)
+            slot[unique] = np.arange(len(unique))
+            for k, j in zip(where.tolist(), slot[rep].tolist()):
+                extra[k] = entries[j]
+    return main, entry_of, copy_of, extra
 
 
-def _splice(record: dict, key: str, text: str) -> str:
-    """``ENCODE(record)`` with ``key`` added, whose value's ``ENCODE`` is ``text`` (not encoded again).
+class _JsonTexts(dict):
+    """``texts[s]``: ``ENCODE(s)`` of a str ``s``, kept."""
 
-    ``record`` is encoded with ``key`` set to None, then ``"<key>":null`` is replaced: in JSON text
-    that can only be the key, since a quote inside a string is escaped and only a key is followed by
-    a colon. ``key`` must be a plain key not already in ``record`` (so it occurs exactly once).
-    """
-    marker = json.dumps(key) + ":"
-    return ENCODE({**record, key: None}).replace(marker + "null", marker + text, 1)
+    def __missing__(self, key: str) -> str:
+        text = self[key] = ENCODE(key)
+        return text
+
+    def each(self, values) -> list:
+        """``[ENCODE(v) for v in values]``."""
+        return [self[v] if type(v) is str else str(v) if type(v) is int else ENCODE(v) for v in values]
+
+
+def _json_lists(values) -> list:
+    """``ENCODE(rnd_list(row))`` of each row of the 2-D ``values``."""
+    texts = textnum.row_texts(values, DECIMALS, "numpy")
+    return [ENCODE(v) for v in rnd_list(values)] if texts is None else texts
+
+
+def _json_numbers(values) -> list:
+    """``ENCODE(rnd(v))`` of each value of the 1-D ``values``."""
+    texts = textnum.row_texts(values, DECIMALS, "python", brackets=False)
+    return [ENCODE(rnd(v)) for v in np.asarray(values).tolist()] if texts is None else texts
+
+
+def _singular_texts(rows, encode) -> list:
+    """``encode(singular_names(row))`` of each row, kept for equal ``singular`` tuples."""
+    seen: dict = {}
+    out = []
+    for flags in map(attrgetter("singular"), rows):
+        try:
+            key = tuple(flags or ())
+            text = seen.get(key)
+            if text is None:
+                text = seen[key] = encode(singular_names(_Flags(flags)))
+        except TypeError:  # unhashable flags
+            text = encode(singular_names(_Flags(flags)))
+        out.append(text)
+    return out
+
+
+@dataclass(frozen=True)
+class _Flags:
+    """A stand-in row with only the ``singular`` flags (for ``summary.singular_names``)."""
+
+    singular: object
+
+
+_LINE_KEYS = tuple(sorted(("row", "rank", *(k for k, _ in _ROW_TEXT_FIELDS), *(k for k, _ in _ROW_INT_FIELDS), "singular", *_ROW_NUMBER_FIELDS, "pairs")))
+"""The keys of a clearance.json row, in the order ``ENCODE`` (``sort_keys``) writes them."""
+_LINE_PIECES = tuple("{" * (k == 0) + "," * (k > 0) + ENCODE(key) + ":" for k, key in enumerate(_LINE_KEYS)) + ("}",)
+"""The literal text of a row line: piece k, then the text of the value of ``_LINE_KEYS[k]``, ..., ``}``."""
+
+
+def json_rows_text(rows, start, rank, index, status_codes, n_defs, witnesses="findings", cache=None) -> str:
+    """The clearance.json lines of ``rows`` (``result.rows[start:start + len(rows)]``; ``rank`` of all
+    rows) joined by ``,\\n``: ``ENCODE(row_record(...))`` of each, with the numbers converted and written
+    for all rows at once (``row_columns``, ``pair_entries``, ``textnum``), and each line put together
+    from the texts of its values (the keys in ``ENCODE``'s sorted order, ``_LINE_PIECES``); the pairs
+    entries, the bulk of the text, are written into place by ``textnum.fill_pairs``."""
+    cache = {} if cache is None else cache
+    cols = row_columns(rows)
+    if cols is None:
+        return ",\n".join(
+            ENCODE(row_record(start + k, row, rank[start + k], index, status_codes, n_defs, witnesses, cache))
+            for k, row in enumerate(rows)
+        )
+    arrays, entry_of, copy_of, extra = pair_entries(rows, index, status_codes, n_defs, witnesses, cache, start)
+    for k in np.flatnonzero((entry_of < 0) & (copy_of < 0)).tolist():  # in row order, as the one-row path adds statuses
+        if extra[k] is None:
+            extra[k] = ENCODE(_row_pairs(rows[k], index, status_codes, n_defs, witnesses, cache)).encode("ascii")
+    strings = cache.setdefault("json_texts", _JsonTexts())
+    n = len(rows)
+    columns = {
+        "row": list(map(str, range(start, start + n))),
+        "rank": strings.each(rank[start:start + n]),
+        **{key: strings.each(map(attrgetter(attr), rows)) for key, attr in _ROW_TEXT_FIELDS},
+        **{key: list(map(str, map(int, map(attrgetter(attr), rows)))) for key, attr in _ROW_INT_FIELDS},
+        "singular": _singular_texts(rows, ENCODE),
+        "q_deg": _json_lists(cols.q_deg),
+        "limit_excess_deg": _json_lists(cols.limit_excess_deg),
+        "limit_joint": list(map(str, cols.limit_joint.tolist())),
+        "clearance_mm": _json_numbers(cols.clearance_mm),
+        "required_mm": _json_numbers(cols.required_mm),
+        "margin_mm": _json_numbers(cols.margin_mm),
+        "witness_body_mm": _json_lists(cols.witness_body_mm),
+        "witness_other_mm": _json_lists(cols.witness_other_mm),
+        "pairs": repeat("\0"),  # a gap for the entry (JSON text holds no raw NUL)
+    }
+    parts = []
+    for piece, key in zip(_LINE_PIECES, _LINE_KEYS):
+        parts += [repeat(piece), columns[key]]
+    parts += [repeat(_LINE_PIECES[-1] + ",\n")]
+    lines = "".join(chain.from_iterable(zip(*parts)))[:-2]
+    text = textnum.fill_pairs(lines, entry_of, copy_of, extra, arrays)
+    if text is None:  # not expected: pair_entries checked the range
+        raise ValueError("a pair number beyond the compiled formatter's range")
+    return text
 
 
 def json_row_lines(rows, start, rank, index, status_codes, n_defs, witnesses="findings", cache=None) -> list:
     """The clearance.json lines of ``rows`` (``result.rows[start:start + len(rows)]``; ``rank`` of all
-    rows): ``ENCODE(row_record(...))`` of each, with the numbers converted for all rows at once
-    (``row_columns``, ``pairs_texts``)."""
-    cache = {} if cache is None else cache
-    cols = row_columns(rows)
-    if cols is None:
-        return [
-            ENCODE(row_record(start + k, row, rank[start + k], index, status_codes, n_defs, witnesses, cache))
-            for k, row in enumerate(rows)
-        ]
-    texts = pairs_texts(rows, index, status_codes, n_defs, witnesses, cache, start)
-    q, excess = rnd_list(cols.q_deg), rnd_list(cols.limit_excess_deg)
-    wb, wo = rnd_list(cols.witness_body_mm), rnd_list(cols.witness_other_mm)
-    clearance, required, margin = ([rnd(v) for v in a.tolist()] for a in (cols.clearance_mm, cols.required_mm, cols.margin_mm))
-    joints = cols.limit_joint.tolist()
-    out = []
-    for k, row in enumerate(rows):
-        i = start + k
-        rec = _record_fields(
-            i, rank[i], row, q_deg=q[k], limit_excess_deg=excess[k], limit_joint=joints[k],
-            clearance_mm=clearance[k], required_mm=required[k], margin_mm=margin[k],
-            witness_body_mm=wb[k], witness_other_mm=wo[k],
-        )
-        if texts[k] is None:
-            rec["pairs"] = _row_pairs(row, index, status_codes, n_defs, witnesses, cache)
-            out.append(ENCODE(rec))
-        else:
-            out.append(_splice(rec, "pairs", texts[k]))
-    return out
+    rows): ``ENCODE(row_record(...))`` of each (``json_rows_text``, split: no line holds a newline)."""
+    return json_rows_text(rows, start, rank, index, status_codes, n_defs, witnesses, cache).split(",\n") if len(rows) else []
 
 
 def _jsonable(value):
@@ -739,8 +905,7 @@ def write_json(result, path, *, witnesses: str = "findings"):
         out.write(before)
         out.write("[\n" if n else "[]")
         for start, chunk in row_chunks(result.rows):
-            lines = json_row_lines(chunk, start, rank, index, status_codes, len(defs), witnesses, cache)
-            out.write(",\n".join(lines))
+            out.write(json_rows_text(chunk, start, rank, index, status_codes, len(defs), witnesses, cache))
             out.write(",\n" if start + len(chunk) < n else "\n]")
         out.write(after)
         out.write("\n")
