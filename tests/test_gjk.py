@@ -22,6 +22,16 @@ def _fcl_convex(V, F):
     return fcl.CollisionObject(fcl.Convex(V, len(F), np.column_stack([np.full(len(F), 3), F]).ravel()))
 
 
+def _random_pair(seed, na, nb, k, pose_seeds, spread=1.0):
+    """Two random hulls ``(V, F)`` and ``k`` random poses of each (translations scaled by ``spread``)."""
+    rng = np.random.default_rng(seed)
+    Va, Fa = _hull(rng, na)
+    Vb, Fb = _hull(rng, nb)
+    Ra, ta = _poses(k, pose_seeds[0])
+    Rb, tb = _poses(k, pose_seeds[1])
+    return Va, Fa, Vb, Fb, Ra, ta * spread, Rb, tb * spread
+
+
 CUBE = np.array([[x, y, z] for x in (-0.5, 0.5) for y in (-0.5, 0.5) for z in (-0.5, 0.5)])
 
 
@@ -35,11 +45,7 @@ def test_distance_matches_python_fcl_on_random_hulls():
     # Reference: python-fcl (an independent general-purpose collision library from PyPI), GJK/EPA on
     # the same convex hulls. Where it reports a separation, the distances agree to 1e-9 m; where it
     # reports a collision, gjk says touching/overlapping.
-    rng = np.random.default_rng(3)
-    Va, Fa = _hull(rng, 150)
-    Vb, Fb = _hull(rng, 60)
-    Ra, ta = _poses(1500, 1)
-    Rb, tb = _poses(1500, 2)
+    Va, Fa, Vb, Fb, Ra, ta, Rb, tb = _random_pair(3, 150, 60, 1500, (1, 2))
     d, pa, pb, state = gjk.distance(Va, Ra, ta, Vb, Rb, tb)
     oa, ob = _fcl_convex(Va, Fa), _fcl_convex(Vb, Fb)
     n_sep = n_hit = 0
@@ -63,11 +69,7 @@ def test_witness_points_lie_in_their_hulls_and_realise_the_distance():
     # The closest points are convex combinations of vertices: inside the posed hull (scipy's Qhull
     # facet inequalities, an independent library), and |p_a - p_b| is the distance; the support gap
     # along p_b - p_a equals it (the lower bound that certifies the value).
-    rng = np.random.default_rng(5)
-    Va, _ = _hull(rng, 80)
-    Vb, _ = _hull(rng, 80)
-    Ra, ta = _poses(400, 7)
-    Rb, tb = _poses(400, 8)
+    Va, _, Vb, _, Ra, ta, Rb, tb = _random_pair(5, 80, 80, 400, (7, 8))
     d, pa, pb, state = gjk.distance(Va, Ra, ta, Vb, Rb, tb)
     sep = np.flatnonzero(state == gjk.SEPARATED)
     assert len(sep) > 50
@@ -105,11 +107,7 @@ def test_unit_cubes_by_hand():
 
 
 def test_batch_equals_one_at_a_time():
-    rng = np.random.default_rng(11)
-    Va, _ = _hull(rng, 40)
-    Vb, _ = _hull(rng, 40)
-    Ra, ta = _poses(64, 3)
-    Rb, tb = _poses(64, 4)
+    Va, _, Vb, _, Ra, ta, Rb, tb = _random_pair(11, 40, 40, 64, (3, 4))
     full = gjk.distance(Va, Ra, ta, Vb, Rb, tb)
     for i in range(0, 64, 7):
         one = gjk.distance(Va, Ra[i:i + 1], ta[i:i + 1], Vb, Rb[i:i + 1], tb[i:i + 1])
@@ -121,13 +119,7 @@ def test_penetration_depth_matches_python_fcl_and_hand_geometry():
     # Reference: python-fcl's signed distance (its own GJK/EPA, an independent library) on
     # overlapping random hulls, to its tolerance (1e-6 m); and by hand (common practice, no source):
     # two unit cubes overlapping by 0.1 m along x have depth 0.1 m, the separating direction x.
-    rng = np.random.default_rng(21)
-    Va, Fa = _hull(rng, 120)
-    Vb, Fb = _hull(rng, 50)
-    Ra, ta = _poses(600, 31)
-    Rb, tb = _poses(600, 32)
-    ta *= 0.4
-    tb *= 0.4
+    Va, Fa, Vb, Fb, Ra, ta, Rb, tb = _random_pair(21, 120, 50, 600, (31, 32), spread=0.4)
     depth, pa, pb, ok = gjk.penetration(Va, Ra, ta, Vb, Rb, tb)
     oa, ob = _fcl_convex(Va, Fa), _fcl_convex(Vb, Fb)
     n = 0
