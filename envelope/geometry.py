@@ -23,7 +23,10 @@ import weakref as _weakref
 from dataclasses import dataclass, field
 from typing import Union
 
+import math
+
 import numpy as np
+from numba import njit
 
 
 def _ro(x, shape=None) -> np.ndarray:
@@ -482,20 +485,10 @@ def winding_number(shape, points) -> np.ndarray:
     winding) for a point inside and 0 outside; it is not reliable for a point on the surface itself.
     """
     p, single = _promote(points)
-    tris = _cached(shape, "tris", lambda: np.asarray(shape.vertices)[np.asarray(shape.faces)])  # (T, 3, 3)
-    a = tris[None, :, 0] - p[:, None]
-    b = tris[None, :, 1] - p[:, None]
-    c = tris[None, :, 2] - p[:, None]
-
-    def dot(x, y):
-        return x[..., 0] * y[..., 0] + x[..., 1] * y[..., 1] + x[..., 2] * y[..., 2]
-
-    la, lb, lc = np.sqrt(dot(a, a)), np.sqrt(dot(b, b)), np.sqrt(dot(c, c))
-    bxc = np.stack([b[..., 1] * c[..., 2] - b[..., 2] * c[..., 1], b[..., 2] * c[..., 0] - b[..., 0] * c[..., 2],
-                    b[..., 0] * c[..., 1] - b[..., 1] * c[..., 0]], axis=-1)
-    num = dot(a, bxc)
-    den = la * lb * lc + dot(a, b) * lc + dot(a, c) * lb + dot(b, c) * la
-    w = np.arctan2(num, den).sum(axis=1) / (2.0 * np.pi)
+    tris = _cached(shape, "tris", lambda: np.ascontiguousarray(np.asarray(shape.vertices, dtype=np.float64)[np.asarray(shape.faces)]))
+    p = np.ascontiguousarray(p, dtype=np.float64).reshape(-1, 3)
+    w = np.empty(len(p))
+    _winding_batch(tris, p, w)
     return float(w[0]) if single else w
 
 
@@ -507,3 +500,27 @@ def is_consistently_wound(shape) -> bool:
     e = np.concatenate([f[:, [0, 1]], f[:, [1, 2]], f[:, [2, 0]]])
     fwd = {(int(i), int(j)) for i, j in e}
     return len(fwd) == len(e) and all((j, i) in fwd for i, j in fwd)
+
+
+@njit(cache=True, nogil=True)
+def winding_of_triangles(T, t0, t1, p):
+    """Winding number about point ``p (3,)`` of triangles ``T[t0:t1]`` (``(k, 3, 3)``), see ``winding_number``."""
+    w = 0.0
+    for k in range(t0, t1):
+        a0, a1, a2 = T[k, 0, 0] - p[0], T[k, 0, 1] - p[1], T[k, 0, 2] - p[2]
+        b0, b1, b2 = T[k, 1, 0] - p[0], T[k, 1, 1] - p[1], T[k, 1, 2] - p[2]
+        c0, c1, c2 = T[k, 2, 0] - p[0], T[k, 2, 1] - p[1], T[k, 2, 2] - p[2]
+        la = math.sqrt(a0 * a0 + a1 * a1 + a2 * a2)
+        lb = math.sqrt(b0 * b0 + b1 * b1 + b2 * b2)
+        lc = math.sqrt(c0 * c0 + c1 * c1 + c2 * c2)
+        num = a0 * (b1 * c2 - b2 * c1) + a1 * (b2 * c0 - b0 * c2) + a2 * (b0 * c1 - b1 * c0)
+        den = la * lb * lc + (a0 * b0 + a1 * b1 + a2 * b2) * lc + (a0 * c0 + a1 * c1 + a2 * c2) * lb \
+            + (b0 * c0 + b1 * c1 + b2 * c2) * la
+        w += math.atan2(num, den)
+    return w / (2.0 * np.pi)
+
+
+@njit(cache=True, nogil=True)
+def _winding_batch(T, P, out):
+    for i in range(P.shape[0]):
+        out[i] = winding_of_triangles(T, 0, T.shape[0], P[i])

@@ -143,23 +143,6 @@ class CompiledMargins:
 
 
 @njit(cache=True, nogil=True)
-def _winding(T, t0, t1, p):
-    w = 0.0
-    for k in range(t0, t1):
-        a0, a1, a2 = T[k, 0, 0] - p[0], T[k, 0, 1] - p[1], T[k, 0, 2] - p[2]
-        b0, b1, b2 = T[k, 1, 0] - p[0], T[k, 1, 1] - p[1], T[k, 1, 2] - p[2]
-        c0, c1, c2 = T[k, 2, 0] - p[0], T[k, 2, 1] - p[1], T[k, 2, 2] - p[2]
-        la = math.sqrt(a0 * a0 + a1 * a1 + a2 * a2)
-        lb = math.sqrt(b0 * b0 + b1 * b1 + b2 * b2)
-        lc = math.sqrt(c0 * c0 + c1 * c1 + c2 * c2)
-        num = a0 * (b1 * c2 - b2 * c1) + a1 * (b2 * c0 - b0 * c2) + a2 * (b0 * c1 - b1 * c0)
-        den = la * lb * lc + (a0 * b0 + a1 * b1 + a2 * b2) * lc + (a0 * c0 + a1 * c1 + a2 * c2) * lb \
-            + (b0 * c0 + b1 * c1 + b2 * c2) * la
-        w += math.atan2(num, den)
-    return w / (2.0 * np.pi)
-
-
-@njit(cache=True, nogil=True)
 def _gap(PA, PB, pa, pb):
     """Support gap of hull(PA) and hull(PB) along ``pb - pa`` (a lower bound on their distance)."""
     u0, u1, u2 = pb[0] - pa[0], pb[1] - pa[1], pb[2] - pa[2]
@@ -292,7 +275,7 @@ def _kernel(R, t, kind, body, V, vstart, T, tstart, tc, tr, center, radius, hs_n
                     for r in range(3):
                         pt[0, r] = R[i, sa, r, 0] * interior[sa, 0] + R[i, sa, r, 1] * interior[sa, 1] \
                             + R[i, sa, r, 2] * interior[sa, 2] + t[i, sa, r]
-                    if abs(_winding(T, tstart[sb], tstart[sb + 1], pt[0])) > 0.5:
+                    if abs(g.winding_of_triangles(T, tstart[sb], tstart[sb + 1], pt[0])) > 0.5:
                         touched = True
                     else:
                         pt[0, 0], pt[0, 1], pt[0, 2] = V[vstart[sb], 0], V[vstart[sb], 1], V[vstart[sb], 2]
