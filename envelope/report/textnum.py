@@ -320,19 +320,6 @@ def _put_entry(buf, pos, r, depth, dist, upper, pruned, codes, keep, point_start
 
 
 @njit(cache=True, nogil=True)
-def _pairs_kernel(depth, dist, upper, pruned, codes, keep, point_start, wb, wo, lit, lit_offs, decimals, scale, small, buf, offs):
-    """The pairs entry of result r at ``buf[offs[r]:offs[r + 1]]``; False if a number is out of range."""
-    pos = 0
-    offs[0] = 0
-    for r in range(keep.shape[0]):
-        pos = _put_entry(buf, pos, r, depth, dist, upper, pruned, codes, keep, point_start, wb, wo, lit, lit_offs, decimals, scale, small)
-        if pos < 0:
-            return False
-        offs[r + 1] = pos
-    return True
-
-
-@njit(cache=True, nogil=True)
 def _copy(out, pos, src, start, stop):
     n = stop - start
     out[pos:pos + n] = src[start:stop]
@@ -480,12 +467,11 @@ class PairArrays:
 
     def entries(self) -> list:
         """The entries as ASCII bytes, one per result (every number in range: ``in_range``)."""
-        buf = np.empty(int(self.bound.sum()) + 2 * _WIDTH, dtype=np.uint8)
-        offs = np.empty(len(self.keep) + 1, dtype=np.int64)
-        if not _pairs_kernel(*self.args(), buf, offs):
+        out = _bare_entries(self)
+        if out is None:
             raise ValueError("a number out of range")
-        data = buf.tobytes()
-        return [data[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
+        data, offs = out[0].tobytes(), out[1].tolist()
+        return [data[a:b] for a, b in zip(offs[:-1], offs[1:])]
 
     def args(self) -> tuple:
         """The kernels' arguments from ``depth`` to ``small``."""
@@ -497,11 +483,18 @@ def pairs_entry_bytes(depth_known, distance_mm, distance_upper_mm, pruned, statu
     """``(buf, offs)``: the texts of ``pairs_entry_texts`` as ASCII bytes, entry r at
     ``buf[offs[r]:offs[r + 1]]``; None if a number is out of range."""
     arrays = PairArrays(depth_known, distance_mm, distance_upper_mm, pruned, status, keep, witness_body_mm, witness_other_mm, pair_text, decimals)
-    if not arrays.ok:
+    return _bare_entries(arrays) if arrays.ok else None
+
+
+def _bare_entries(arrays: PairArrays):
+    """``(buf, offs)`` of every entry of ``arrays``, one after the other; None if out of range."""
+    n = len(arrays.keep)
+    entry_of = np.arange(n, dtype=np.int64)
+    out = _write(np.zeros(n, dtype=np.uint8), np.arange(n, dtype=np.int64), entry_of, np.full(n, -1, dtype=np.int64), [None] * n, arrays)
+    if out is None:
         return None
-    buf = np.empty(int(arrays.bound.sum()) + 2 * _WIDTH, dtype=np.uint8)
-    offs = np.empty(len(arrays.keep) + 1, dtype=np.int64)
-    return (buf, offs) if _pairs_kernel(*arrays.args(), buf, offs) else None
+    buf, starts, ends = out
+    return buf, np.concatenate([[0], ends]).astype(np.int64)
 
 
 def fill_pairs(text: str, entry_of, copy_of, extra, arrays: PairArrays | None) -> str | None:
@@ -511,7 +504,13 @@ def fill_pairs(text: str, entry_of, copy_of, extra, arrays: PairArrays | None) -
     range. ``text`` must hold one NUL per gap (JSON text never holds a raw NUL: the encoder escapes it).
     """
     data = np.frombuffer(text.encode("ascii"), dtype=np.uint8)
-    gaps = np.flatnonzero(data == 0)
+    out = _write(data, np.flatnonzero(data == 0), entry_of, copy_of, extra, arrays)
+    return None if out is None else str(out[0].data, "ascii")
+
+
+def _write(data, gaps, entry_of, copy_of, extra, arrays: PairArrays | None):
+    """``(out, starts, ends)`` of ``fill_pairs`` (``data`` the text's bytes, ``gaps`` its NULs, gap k's
+    text at ``out[starts[k]:ends[k]]``); None if a number is out of range."""
     n = len(gaps)
     entry_of = np.ascontiguousarray(entry_of, dtype=np.int64)
     copy_of = np.ascontiguousarray(copy_of, dtype=np.int64)
@@ -539,7 +538,7 @@ def fill_pairs(text: str, entry_of, copy_of, extra, arrays: PairArrays | None) -
     out = np.empty(bound, dtype=np.uint8)
     starts, ends = np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)
     length = _lines_kernel(data, gaps, entry_of, copy_of, np.arange(n, dtype=np.int64), extra_buf, extra_offs, *arrays.args(), out, starts, ends)
-    return None if length < 0 else str(out[:length].data, "ascii")
+    return None if length < 0 else (out[:length], starts, ends)
 
 
 @njit(cache=True, nogil=True)
@@ -562,9 +561,6 @@ def equal_rows(arrays, k, t) -> np.ndarray:
     for a in arrays:
         a = np.ascontiguousarray(a)
         a = a.reshape(len(a), -1).view(np.uint8)
-        if a.shape[1] == 0:
-            continue
-        if a.shape[1] % 8 == 0:
-            a = a.view(np.uint64)
-        _equal_rows_kernel(a, k, t, same)
+        if a.shape[1]:
+            _equal_rows_kernel(a, k, t, same)
     return same
