@@ -39,7 +39,7 @@ import numpy as np
 from . import geometry as g
 from . import standards as st
 from .errors import InputError
-from .space import Space, box_corners
+from .space import Space
 from .units import to_metres, to_mm
 
 __all__ = [
@@ -316,7 +316,7 @@ def evaluate_panel(space: Space, zone, panel_index: int, *, risk: str = "high") 
     d3, _ = _distance_3d(space, shape)
     d3_mm = _mm(max(d3, 0.0))
     # heights are above the floor under the panel: the panel's bottom edge less its bottom gap
-    floor_z = float(box_corners(shape)[:, 2].min()) - float(att["bottom_gap"])
+    floor_z = float(g.box_corners(shape)[:, 2].min()) - float(att["bottom_gap"])
     floor_mm = _mm(floor_z)
     # rounded to 1e-6 mm so that a layer edge on a table row (1400.0000000000002) reads as the row
     layers_z = np.round(to_mm(space.layer_bounds()) - floor_mm, 6)

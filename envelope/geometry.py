@@ -476,6 +476,13 @@ def closest_on_triangles(tris, points) -> np.ndarray:
     return out
 
 
+def box_corners(box) -> np.ndarray:
+    """``(8, 3)`` corners of a ``Box`` in its parent frame."""
+    h = 0.5 * np.asarray(box.extents)
+    s = np.array([[i, j, k] for i in (-1, 1) for j in (-1, 1) for k in (-1, 1)], dtype=np.float64)
+    return (s * h) @ box.pose[:3, :3].T + box.pose[:3, 3]
+
+
 def winding_number(shape, points) -> np.ndarray:
     """``(k,)`` generalised winding number of a closed ``TriMesh`` about each point (``(k, 3)``).
 

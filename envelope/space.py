@@ -365,19 +365,12 @@ def _dist_to_polygon(p, poly):
     return np.where(inside, 0.0, edge)
 
 
-def box_corners(box) -> np.ndarray:
-    """``(8, 3)`` corners of a ``Box`` in its parent frame."""
-    h = 0.5 * np.asarray(box.extents)
-    s = np.array([[i, j, k] for i in (-1, 1) for j in (-1, 1) for k in (-1, 1)], dtype=np.float64)
-    return (s * h) @ box.pose[:3, :3].T + box.pose[:3, 3]
-
-
 def box_footprint(box) -> np.ndarray:
     """``(m, 2)`` counter-clockwise convex footprint (XY) of a ``Box``."""
     from scipy.spatial import ConvexHull
 
     def make():
-        xy = box_corners(box)[:, :2]
+        xy = g.box_corners(box)[:, :2]
         hull = ConvexHull(xy)
         out = xy[hull.vertices]  # scipy gives 2-D hull vertices counter-clockwise
         out.flags.writeable = False
@@ -394,9 +387,9 @@ def _key_points(shape):
     if isinstance(shape, g.Capsule):
         return np.stack([shape.p0, shape.p1]), shape.radius
     if isinstance(shape, g.Box):
-        return box_corners(shape), 0.0
+        return g.box_corners(shape), 0.0
     if isinstance(shape, g.Cylinder):
-        return box_corners(g.Box([2 * shape.radius, 2 * shape.radius, shape.length], shape.pose)), 0.0
+        return g.box_corners(g.Box([2 * shape.radius, 2 * shape.radius, shape.length], shape.pose)), 0.0
     if isinstance(shape, (g.Convex, g.TriMesh)):
         return np.asarray(g.convex_hull(shape).vertices if isinstance(shape, g.TriMesh) else shape.vertices), 0.0
     raise InputError(f"a moving body cannot hold a {type(shape).__name__}", item="body shape")
