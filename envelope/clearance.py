@@ -412,8 +412,7 @@ def _polytope_vertices(shape):
     if isinstance(shape, g.Convex):
         return np.ascontiguousarray(shape.vertices, dtype=np.float64)
     if isinstance(shape, g.Box):
-        corners = np.array([[x, y, z] for x in (-0.5, 0.5) for y in (-0.5, 0.5) for z in (-0.5, 0.5)]) * shape.extents
-        return np.ascontiguousarray(corners @ shape.pose[:3, :3].T + shape.pose[:3, 3])
+        return np.ascontiguousarray(g.box_corners(shape), dtype=np.float64)
     return None
 
 
@@ -437,15 +436,9 @@ def _separation_batch(A, B, Ra, ta, Rb, tb, fallback):
     eye, zero = np.broadcast_to(np.eye(3), (k, 3, 3)), np.zeros((k, 3))
     RA, TA = (Ra, ta) if A.body >= 0 else (eye, zero)
     RB, TB = (Rb, tb) if B.body >= 0 else (eye, zero)
-    dg, ga, gb, state = gjk.distance(A.verts, RA, TA, B.verts, RB, TB)
-    ok = state == gjk.SEPARATED
+    dg, ga, gb, state = gjk.signed_distance(A.verts, RA, TA, B.verts, RB, TB)
+    ok = (state == gjk.SEPARATED) | (state == gjk.PENETRATING)
     d[ok], pa[ok], pb[ok] = dg[ok], ga[ok], gb[ok]
-    touch = np.flatnonzero(state == gjk.TOUCHING)
-    if touch.size:  # overlapping: the penetration direction by EPA (its depth as a negative distance)
-        depth, ea, eb, found = gjk.penetration(A.verts, RA[touch], TA[touch], B.verts, RB[touch], TB[touch])
-        got = touch[found]
-        d[got], pa[got], pb[got] = -depth[found], ea[found], eb[found]
-        state[got] = gjk.SEPARATED  # done
     for which, contact in ((gjk.TOUCHING, True), (gjk.UNSETTLED, False)):
         todo = np.flatnonzero(state == which)
         if todo.size:

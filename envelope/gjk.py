@@ -27,9 +27,9 @@ REL_TOL = 1e-12
 """Stop when ``|v|^2 - v.w <= REL_TOL |v|^2`` (the lower bound ``v.w / |v|`` within about 5e-13 of ``|v|``)."""
 TOUCH_TOL = 1e-12
 """m: a distance below this counts as touching."""
-SEPARATED, TOUCHING, UNSETTLED, ABOVE = 0, 1, 2, 3
+SEPARATED, TOUCHING, UNSETTLED, ABOVE, PENETRATING = 0, 1, 2, 3, 4
 """The ``state`` of a query (``ABOVE``: stopped early, the distance is at least the returned value,
-which is at least the ``stop_above`` asked for)."""
+which is at least the ``stop_above`` asked for; ``PENETRATING``: overlapping, depth found by EPA)."""
 
 
 @njit(cache=True, nogil=True)
@@ -296,28 +296,54 @@ def pose_points(V, R, t, out):
 
 
 @njit(cache=True, nogil=True)
-def gjk_batch(Va, Ra, ta, Vb, Rb, tb, dist, pa, pb, state):
+def gjk_batch(Va, Ra, ta, Vb, Rb, tb, epa, dist, pa, pb, state):
     """For each pose ``i``: distance between hull(Va) posed ``Ra[i], ta[i]`` and hull(Vb) posed
     ``Rb[i], tb[i]``, closest points ``pa[i]``, ``pb[i]``, and ``state[i]``: ``SEPARATED``,
-    ``TOUCHING`` (touching or overlapping) or ``UNSETTLED``."""
+    ``TOUCHING`` (touching or overlapping) or ``UNSETTLED``. With ``epa``, overlapping poses go on to
+    EPA from GJK's last simplex: ``state`` ``PENETRATING``, ``dist`` minus the depth (a certified
+    lower bound on the signed distance), ``pa`` the deepest point of A along the separating
+    direction ``n`` and ``pb = pa - depth n``."""
     PA = np.empty(Va.shape)
     PB = np.empty(Vb.shape)
     W = np.empty((4, 3))
+    nrm = np.empty(3)
+    a = np.empty(3)
     for i in range(Ra.shape[0]):
         pose_points(Va, Ra[i], ta[i], PA)
         pose_points(Vb, Rb[i], tb[i], PB)
         dist[i], state[i] = gjk_points(PA, PB, pa[i], pb[i], W, np.inf)
+        if not epa or state[i] != TOUCHING:
+            continue
+        bound, _, found = penetration_bound(PA, PB, W, nrm)
+        if not found:
+            continue
+        _support(PA, nrm[0], nrm[1], nrm[2], a)
+        depth = max(-bound, 0.0)
+        for r in range(3):
+            pa[i, r] = a[r]
+            pb[i, r] = a[r] - depth * nrm[r]
+        dist[i], state[i] = -depth, PENETRATING
 
 
-def distance(Va, Ra, ta, Vb, Rb, tb):
-    """``(dist (k,), pa (k, 3), pb (k, 3), state (k,))`` for vertex arrays and pose stacks (see module doc)."""
+def _batch(Va, Ra, ta, Vb, Rb, tb, epa):
     Ra, Rb = np.ascontiguousarray(Ra, dtype=np.float64), np.ascontiguousarray(Rb, dtype=np.float64)
     ta, tb = np.ascontiguousarray(ta, dtype=np.float64), np.ascontiguousarray(tb, dtype=np.float64)
     k = len(Ra)
     dist, pa, pb, state = np.empty(k), np.empty((k, 3)), np.empty((k, 3)), np.empty(k, dtype=np.int8)
     gjk_batch(np.ascontiguousarray(Va, dtype=np.float64), Ra, ta, np.ascontiguousarray(Vb, dtype=np.float64),
-              Rb, tb, dist, pa, pb, state)
+              Rb, tb, epa, dist, pa, pb, state)
     return dist, pa, pb, state
+
+
+def signed_distance(Va, Ra, ta, Vb, Rb, tb):
+    """``(dist, pa, pb, state)`` as ``gjk_batch`` with EPA: the distance where apart (``SEPARATED``),
+    minus the depth where overlapping (``PENETRATING``); other states for the caller to settle."""
+    return _batch(Va, Ra, ta, Vb, Rb, tb, True)
+
+
+def distance(Va, Ra, ta, Vb, Rb, tb):
+    """``(dist (k,), pa (k, 3), pb (k, 3), state (k,))`` for vertex arrays and pose stacks (see module doc)."""
+    return _batch(Va, Ra, ta, Vb, Rb, tb, False)
 
 
 EPA_MAX_FACES = 512
@@ -438,42 +464,10 @@ def penetration_bound(PA, PB, S, nrm):
     return best_bound, last, True
 
 
-@njit(cache=True, nogil=True)
-def penetration_batch(Va, Ra, ta, Vb, Rb, tb, depth, pa, pb, ok):
-    """For each pose ``i`` where the posed hulls overlap: ``depth[i]`` (>= the penetration depth: minus
-    a certified lower bound on the signed distance), ``pa[i]`` the deepest point of A along the
-    separating direction ``n`` and ``pb[i] = pa[i] - depth[i] n``; ``ok[i]`` False where they do not
-    overlap or EPA could not start."""
-    PA = np.empty(Va.shape)
-    PB = np.empty(Vb.shape)
-    W = np.empty((4, 3))
-    a = np.empty(3)
-    b = np.empty(3)
-    nrm = np.empty(3)
-    for i in range(Ra.shape[0]):
-        pose_points(Va, Ra[i], ta[i], PA)
-        pose_points(Vb, Rb[i], tb[i], PB)
-        _, state = gjk_points(PA, PB, a, b, W, np.inf)
-        ok[i] = False
-        if state != TOUCHING:
-            continue
-        bound, _, found = penetration_bound(PA, PB, W, nrm)
-        if not found:
-            continue
-        _support(PA, nrm[0], nrm[1], nrm[2], a)
-        depth[i] = max(-bound, 0.0)
-        for r in range(3):
-            pa[i, r] = a[r]
-            pb[i, r] = a[r] - depth[i] * nrm[r]
-        ok[i] = True
-
-
 def penetration(Va, Ra, ta, Vb, Rb, tb):
-    """``(depth (k,), pa (k, 3), pb (k, 3), ok (k,))`` for vertex arrays and pose stacks (see ``penetration_batch``)."""
-    Ra, Rb = np.ascontiguousarray(Ra, dtype=np.float64), np.ascontiguousarray(Rb, dtype=np.float64)
-    ta, tb = np.ascontiguousarray(ta, dtype=np.float64), np.ascontiguousarray(tb, dtype=np.float64)
-    k = len(Ra)
-    depth, pa, pb, ok = np.zeros(k), np.empty((k, 3)), np.empty((k, 3)), np.empty(k, dtype=bool)
-    penetration_batch(np.ascontiguousarray(Va, dtype=np.float64), Ra, ta, np.ascontiguousarray(Vb, dtype=np.float64),
-                      Rb, tb, depth, pa, pb, ok)
-    return depth, pa, pb, ok
+    """``(depth (k,), pa (k, 3), pb (k, 3), ok (k,))``: where the posed hulls overlap and EPA could
+    start, ``ok`` and the depth (minus a certified lower bound on the signed distance) with the
+    points of ``gjk_batch``."""
+    dist, pa, pb, state = _batch(Va, Ra, ta, Vb, Rb, tb, True)
+    ok = state == PENETRATING
+    return np.where(ok, -dist, 0.0), pa, pb, ok
